@@ -1,0 +1,218 @@
+"""Links and taps: moving chunks between block threads over ZeroMQ.
+
+A *link* is lossless: PUSH -> PULL with a bounded high-water mark, so a slow consumer makes its
+producer wait (backpressure). A *tap* is lossy: XPUB (with ``XPUB_NODROP``, so a full queue is
+reported to the sender instead of silently discarded) -> SUB; when the observer is behind, the
+chunk is dropped and counted, and the producer never waits. Only the end-of-stream message
+waits on a tap, so observers always learn that the stream ended.
+
+Sequence numbers make loss visible: every message on a link carries the next number (a dropped
+tap chunk uses one up too), and the receiving end counts the numbers that never arrived.
+Frames that fail to decode are counted and logged, never raised into the block.
+"""
+
+from __future__ import annotations
+
+import logging
+import threading
+import time
+from dataclasses import dataclass
+
+import zmq
+
+from stream import frame
+from stream.chunk import Chunk
+from stream.errors import LinkClosed
+
+__all__ = ["Inlet", "LinkCounters", "LinkStatistics", "Outlet", "open_link"]
+
+log = logging.getLogger("phasefree.link")
+
+_POLL_MS = 50
+
+
+@dataclass(frozen=True)
+class LinkStatistics:
+    """A link's counters at one moment; ``depth`` is messages sent but not yet received."""
+
+    label: str
+    tap: bool
+    sent: int
+    received: int
+    dropped: int
+    gaps: int
+    rejected: int
+    depth: int
+
+
+class LinkCounters:
+    """Counters shared by the two ends of one link (each end writes its own fields)."""
+
+    def __init__(self, label: str, tap: bool) -> None:
+        self.label = label
+        self.tap = tap
+        self.sent = 0
+        self.dropped = 0
+        self.received = 0
+        self.gaps = 0
+        self.rejected = 0
+
+    def statistics(self) -> LinkStatistics:
+        """A frozen record of the counters."""
+        depth = max(0, self.sent - self.received - self.dropped - self.gaps)
+        return LinkStatistics(self.label, self.tap, self.sent, self.received, self.dropped,
+                              self.gaps, self.rejected, depth)
+
+    def __repr__(self) -> str:
+        s = self.statistics()
+        kind = "tap" if self.tap else "link"
+        return f"<{kind} {self.label}: depth={s.depth} sent={s.sent} dropped={s.dropped}>"
+
+
+class Outlet:
+    """The sending end of a link or tap; used by exactly one thread at a time."""
+
+    def __init__(self, sock: zmq.Socket, counters: LinkCounters, abort: threading.Event) -> None:
+        self.sock = sock
+        self.counters = counters
+        self.abort = abort
+        self.seq = 0
+        self.position = 0
+
+    def send(self, chunk: Chunk) -> bool:
+        """Send one chunk; a link waits for room, a tap drops when full.
+
+        Returns
+        -------
+        bool
+            True if sent, False if dropped (taps only).
+
+        Raises
+        ------
+        LinkClosed
+            If the run is aborted while waiting for room.
+        """
+        parts = frame.encode(chunk, self.seq)
+        self.seq += 1
+        self.position = chunk.stop
+        if self.counters.tap:
+            try:
+                self.sock.send_multipart(parts, flags=zmq.NOBLOCK, copy=False)
+            except zmq.Again:
+                self.counters.dropped += 1
+                return False
+        else:
+            self._send_waiting(parts)
+        self.counters.sent += 1
+        return True
+
+    def end(self, timeout_s: float = 2.0) -> None:
+        """Send end of stream (waits for room on links and taps alike, up to ``timeout_s``)."""
+        parts = frame.encode_end(self.seq, self.position)
+        self.seq += 1
+        try:
+            self._send_waiting(parts, timeout_s)
+            self.counters.sent += 1
+        except LinkClosed:
+            log.debug("end of stream not delivered on %s", self.counters.label)
+
+    def _send_waiting(self, parts: list, timeout_s: float | None = None) -> None:
+        deadline = None if timeout_s is None else time.monotonic() + timeout_s
+        while True:
+            try:
+                self.sock.send_multipart(parts, flags=zmq.NOBLOCK, copy=False)
+                return
+            except zmq.Again:
+                if self.abort.is_set() or (deadline is not None and time.monotonic() > deadline):
+                    raise LinkClosed(self.counters.label) from None
+                # XPUB reports itself writable even when XPUB_NODROP refuses, so wait by time
+                if self.counters.tap:
+                    time.sleep(_POLL_MS / 10000)
+                else:
+                    self.sock.poll(_POLL_MS, zmq.POLLOUT)
+
+    def close(self) -> None:
+        """Close the socket without lingering."""
+        self.sock.close(linger=0)
+
+
+class Inlet:
+    """The receiving end of a link or tap, for one input port."""
+
+    def __init__(self, sock: zmq.Socket, counters: LinkCounters, port: str) -> None:
+        self.sock = sock
+        self.counters = counters
+        self.port = port
+        self.expected = 0
+        self.ended = False
+
+    def receive(self) -> frame.Message | None:
+        """Read one waiting message (the caller polled the socket first).
+
+        Returns None when nothing valid was waiting: a rejected frame is counted and logged.
+        """
+        try:
+            parts = self.sock.recv_multipart(flags=zmq.NOBLOCK, copy=False)
+        except zmq.Again:
+            return None
+        try:
+            msg = frame.decode(parts)
+        except frame.FrameError as err:
+            self.counters.rejected += 1
+            log.warning("link %s: rejected frame: %s", self.counters.label, err)
+            return None
+        if msg.seq > self.expected:
+            self.counters.gaps += msg.seq - self.expected
+        self.expected = msg.seq + 1
+        if msg.kind is frame.MessageKind.DATA:
+            self.counters.received += 1
+            assert msg.chunk is not None
+            return frame.Message(msg.kind, msg.seq, msg.start,
+                                 Chunk(msg.chunk.samples, msg.chunk.start, msg.chunk.rate,
+                                       msg.chunk.annotations, self.port))
+        if msg.kind is frame.MessageKind.END:
+            self.counters.received += 1
+            self.ended = True
+        return msg
+
+    def close(self) -> None:
+        """Close the socket without lingering."""
+        self.sock.close(linger=0)
+
+
+def open_link(ctx: zmq.Context, address: str, counters: LinkCounters, port: str,
+              abort: threading.Event, depth: int) -> tuple[Outlet, Inlet]:
+    """Create both ends of a link (PUSH/PULL) or tap (XPUB/SUB) on ``address``.
+
+    For a tap this waits until the subscription has reached the publisher, so the first chunks
+    are not lost to the subscription handshake.
+    """
+    if counters.tap:
+        tx = ctx.socket(zmq.XPUB)
+        tx.setsockopt(zmq.XPUB_NODROP, 1)
+        tx.setsockopt(zmq.SNDHWM, depth)
+        rx = ctx.socket(zmq.SUB)
+        rx.setsockopt(zmq.RCVHWM, depth)
+        rx.setsockopt(zmq.SUBSCRIBE, b"")
+    else:
+        tx = ctx.socket(zmq.PUSH)
+        tx.setsockopt(zmq.SNDHWM, depth)
+        rx = ctx.socket(zmq.PULL)
+        rx.setsockopt(zmq.RCVHWM, depth)
+    for sock in (tx, rx):
+        sock.setsockopt(zmq.LINGER, 0)
+    # the publishing side binds: a subscription made before the publisher connects is not
+    # forwarded to it on inproc (seen with libzmq 4.3), so taps always bind the XPUB end
+    binder, connector = (tx, rx) if counters.tap else (rx, tx)
+    try:
+        binder.bind(address)
+        connector.connect(address)
+    except zmq.ZMQError as err:
+        tx.close(linger=0)
+        rx.close(linger=0)
+        raise OSError(f"cannot open link {counters.label} on {address}: {err}") from err
+    if counters.tap and not tx.poll(2000, zmq.POLLIN):
+        raise OSError(f"tap {counters.label}: subscription did not arrive on {address}")
+    if counters.tap:
+        tx.recv()  # the subscription message
+    return Outlet(tx, counters, abort), Inlet(rx, counters, port)

@@ -1,0 +1,202 @@
+"""Pipeline files: TOML in, a validated ``Pipeline`` out, every error located by key path.
+
+Layout (see DESIGN.md)::
+
+    [pipeline]
+    name = "orchard-frost-2fsk"
+    sample_rate = 250_000            # default for sources that do not set their own
+    symbol_rate = 9_600              # default for blocks that take a symbol_rate
+    links = ["src -> det -> ber", "det.soft ~> eye"]   # "->" lossless link, "~>" tap
+
+    [blocks.src]
+    kind = "sim"
+    ...
+
+In a chain ``a -> b.p -> c`` a port written on a middle block names the output that leaves it;
+the chain enters the block on its only input. Name an input port on the last block of a chain.
+"""
+
+from __future__ import annotations
+
+import re
+import tomllib
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+from typing import Any
+
+from stream import registry
+from stream.errors import ParamError, PipelineError
+from stream.graph import Pipeline, parse_endpoint
+
+__all__ = ["PIPELINE_KEYS", "load_pipeline", "parse_override", "pipeline_from_dict"]
+
+#: Keys allowed in the ``[pipeline]`` table, with what they mean.
+PIPELINE_KEYS = {
+    "name": "name shown in status and summary",
+    "description": "one paragraph on what the pipeline is for",
+    "sample_rate": "default sample_rate (Hz) of sources that do not set one",
+    "symbol_rate": "default symbol_rate (symbols/s) of blocks that take one",
+    "links": "list of chains 'a -> b -> c' ('~>' makes a lossy tap)",
+    "queue_depth": "chunks a link holds before it applies backpressure",
+}
+#: Keys of ``[pipeline]`` handed down to blocks that declare a parameter of the same name.
+INHERITED = ("sample_rate", "symbol_rate")
+
+_ARROW = re.compile(r"\s*(->|~>)\s*")
+_ID = re.compile(r"^[A-Za-z_][A-Za-z0-9_-]*$")
+
+
+def parse_override(text: str) -> tuple[str, str, Any]:
+    """Parse ``--set id.param=value`` into ``(id, param, value)``.
+
+    The value is read as a TOML value (numbers, booleans, quoted strings, lists); anything
+    that is not valid TOML is taken as a bare string, so ``--set src.modulation=ook`` works.
+    """
+    target, sep, raw = text.partition("=")
+    block_id, _, param = target.strip().partition(".")
+    if not sep or not block_id or not param:
+        raise PipelineError("--set", f"expected id.param=value (got {text!r})")
+    raw = raw.strip()
+    try:
+        value = tomllib.loads(f"v = {raw}")["v"]
+    except tomllib.TOMLDecodeError:
+        value = raw
+    return block_id, param.strip(), value
+
+
+def load_pipeline(path: str | Path, overrides: Sequence[str] = ()) -> Pipeline:
+    """Read, override and validate a pipeline file.
+
+    Parameters
+    ----------
+    path : str or Path
+        The TOML pipeline file.
+    overrides : sequence of str
+        ``id.param=value`` strings (``pipeline.key=value`` for the pipeline table).
+
+    Returns
+    -------
+    Pipeline
+        Validated and configured, ready to run.
+
+    Raises
+    ------
+    PipelineError
+        ``str(err)`` reads ``FILE: key.path: message``.
+    """
+    name = str(path)
+    try:
+        text = Path(path).read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise PipelineError("", "no such pipeline file", name) from None
+    except (OSError, UnicodeDecodeError) as err:
+        raise PipelineError("", f"cannot read: {err}", name) from None
+    try:
+        doc = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        raise PipelineError("", f"not valid TOML: {err}", name) from None
+    try:
+        return pipeline_from_dict(doc, overrides)
+    except PipelineError as err:
+        raise err.in_file(name) from None
+
+
+def _apply_overrides(doc: dict[str, Any], overrides: Sequence[str]) -> None:
+    blocks = doc.get("blocks", {})
+    for text in overrides:
+        block_id, param, value = parse_override(text)
+        if block_id == "pipeline":
+            doc.setdefault("pipeline", {})[param] = value
+            continue
+        if not isinstance(blocks, dict) or block_id not in blocks:
+            known = ", ".join(blocks) if isinstance(blocks, dict) else "none"
+            raise PipelineError(f"--set {block_id}.{param}",
+                                f"unknown block {block_id!r} (blocks: {known})")
+        blocks[block_id][param] = value
+
+
+def pipeline_from_dict(doc: dict[str, Any], overrides: Sequence[str] = ()) -> Pipeline:
+    """Build and validate a pipeline from an already-parsed pipeline file (see module doc)."""
+    doc = {k: (dict(v) if isinstance(v, dict) else v) for k, v in doc.items()}
+    if isinstance(doc.get("blocks"), dict):
+        doc["blocks"] = {k: (dict(v) if isinstance(v, dict) else v)
+                         for k, v in doc["blocks"].items()}
+    _apply_overrides(doc, overrides)
+    for key in doc:
+        if key not in ("pipeline", "blocks"):
+            raise PipelineError(key, "unknown table (expected [pipeline] and [blocks.ID])")
+    head = doc.get("pipeline", {})
+    if not isinstance(head, dict):
+        raise PipelineError("pipeline", "must be a table")
+    for key in head:
+        if key not in PIPELINE_KEYS:
+            raise PipelineError(f"pipeline.{key}",
+                                f"unknown key (known: {', '.join(PIPELINE_KEYS)})")
+    pipe = Pipeline(str(head.get("name", "pipeline")))
+    inherited = _inherited(head)
+    blocks = doc.get("blocks")
+    if not isinstance(blocks, dict) or not blocks:
+        raise PipelineError("blocks", "no blocks defined (add tables [blocks.ID] with a kind)")
+    for block_id, table in blocks.items():
+        pipe.add(_make_block(block_id, table, inherited))
+    links = head.get("links")
+    if not isinstance(links, list) or not links:
+        raise PipelineError("pipeline.links", "must be a non-empty list of 'a -> b' chains")
+    for i, chain in enumerate(links):
+        _add_chain(pipe, chain, f"pipeline.links[{i}]")
+    pipe.validate()
+    return pipe
+
+
+def _inherited(head: Mapping[str, Any]) -> dict[str, Any]:
+    out = {}
+    for key in INHERITED:
+        if key in head:
+            value = head[key]
+            if isinstance(value, bool) or not isinstance(value, (int, float)) or not value > 0:
+                raise PipelineError(f"pipeline.{key}", f"must be a number > 0 (got {value!r})")
+            out[key] = value
+    return out
+
+
+def _make_block(block_id: str, table: Any, inherited: Mapping[str, Any]):
+    key = f"blocks.{block_id}"
+    if not _ID.match(block_id):
+        raise PipelineError(key, "block ids are letters, digits, '_' and '-', not starting "
+                            "with a digit")
+    if not isinstance(table, dict):
+        raise PipelineError(key, "must be a table with a kind")
+    params = dict(table)
+    kind = params.pop("kind", None)
+    if kind is None:
+        raise PipelineError(f"{key}.kind", "is required (see 'phasefree blocks')")
+    cls = registry.lookup(kind) if isinstance(kind, str) else None
+    if cls is None:
+        known = ", ".join(registry.kinds())
+        raise PipelineError(f"{key}.kind", f"unknown kind {kind!r} (kinds: {known})")
+    declared = {p.name for p in cls.params}
+    for name, value in inherited.items():
+        if name in declared and name not in params:
+            params[name] = value
+    try:
+        return cls(block_id, **params)
+    except ParamError as err:
+        raise PipelineError(f"{key}.{err.name}", err.message) from None
+
+
+def _add_chain(pipe: Pipeline, chain: Any, key: str) -> None:
+    if not isinstance(chain, str):
+        raise PipelineError(key, f"must be a string like 'a -> b' (got {chain!r})")
+    parts = _ARROW.split(chain.strip())
+    if len(parts) < 3 or any(not p for p in parts[::2]):
+        raise PipelineError(key, f"expected 'a -> b [-> c ...]' (got {chain!r})")
+    nodes, arrows = parts[::2], parts[1::2]
+    for node in nodes:
+        block_id, port = parse_endpoint(node)
+        if not _ID.match(block_id) or (port is not None and not _ID.match(port)):
+            raise PipelineError(key, f"bad endpoint {node!r} (write id or id.port)")
+    for i, arrow in enumerate(arrows):
+        # a middle node's port names the output leaving it; it is entered on its only input
+        last = i + 1 == len(nodes) - 1
+        dst = nodes[i + 1] if last else parse_endpoint(nodes[i + 1])[0]
+        pipe.connect(nodes[i], dst, tap=arrow == "~>", key=key)
