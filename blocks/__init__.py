@@ -3,4 +3,13 @@
 Importing this package registers every built-in block kind.
 """
 
-from blocks import basic, detectors, framing, simulator, sinks  # noqa: F401  (registers kinds)
+from blocks import (  # noqa: F401  (registers kinds)
+    basic,
+    conditioning,
+    detectors,
+    framing,
+    meters,
+    simulator,
+    sinks,
+    sync,
+)

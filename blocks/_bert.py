@@ -17,21 +17,23 @@ Counting and loss of sync
     Stream framing judges consecutive windows of ``window_bits`` counted from the lock point;
     a window with more than ``loss_threshold`` of its bits in error means sync is lost. A
     window that passes is committed only once the next one passes too, so that on a loss the
-    onset can be placed over both windows: the earliest error from which the error fraction
-    to the end of the failed window exceeds the threshold. Bits before the onset are counted,
-    the rest is not, and acquisition restarts at the onset. A bit slip therefore adds no
-    counted errors and costs about ``degree + acquire_bits`` uncounted bits; an error burst
-    short enough to keep every window under the threshold is counted as errors (the pattern
-    stayed aligned), a longer one is treated as a loss of sync. A partial window at the end
-    of the stream (or before a gap) is judged the same way, its failing tail dropped without
-    counting a loss. Counts therefore lag the input by up to two windows.
+    onset can be placed over both windows: the start of the stretch, running to the end of
+    the failed window, whose error count most exceeds ``loss_threshold`` times its length
+    (a CUSUM change point [3]_). Bits before the onset are counted, the rest is not, and
+    acquisition restarts at the onset. A bit slip therefore adds no counted errors and costs
+    about ``degree + acquire_bits`` uncounted bits; an error burst short enough to keep
+    every window under the threshold is counted as errors (the pattern stayed aligned), a
+    longer one is treated as a loss of sync. A partial window at the end of the stream (or
+    before a gap) is judged the same way, its failing tail dropped without counting a loss.
+    Counts therefore lag the input by up to two windows.
 Packet framing
     The input carries the payload bits of packets, each announced by a ``"packet"`` annotation
     at its first bit with its length; the payloads are consecutive segments of one
     continuous pattern. Each packet is compared whole with the continuation of the previous
-    one. If it fails (a packet was lost upstream, or this one is ruined) the tester
-    re-acquires inside the packet and counts the packet's bits after the acquisition run.
-    Bits between packets are ignored.
+    one. If it fails (a packet was lost upstream, or this one is ruined, or its length was
+    misread) the tester counts it up to the loss onset if that part matched over at least
+    ``acquire_bits``, re-acquires inside the rest of the packet and counts the bits after
+    the acquisition run, judged the same way. Bits between packets are ignored.
 Gaps
     Missing samples (a chunk whose start jumps forward, or a ``"gap"`` annotation) end the
     lock; acquisition restarts after the gap, and the gap is never counted as errors.
@@ -47,6 +49,7 @@ References
 .. [1] ITU-T Recommendation O.150, sec. 5 (pseudo-random test patterns).
 .. [2] C. J. Clopper and E. S. Pearson, "The use of confidence or fiducial limits illustrated
    in the case of the binomial", Biometrika 26(4), 1934.
+.. [3] E. S. Page, "Continuous inspection schemes", Biometrika 41(1/2), 1954 (CUSUM).
 """
 
 from __future__ import annotations
@@ -84,15 +87,15 @@ _EMPTY_FLAGS = np.zeros(0, dtype=bool)
 
 
 def _loss_onset(flags: np.ndarray, threshold: float) -> int:
-    """Earliest error from which the error fraction to the end exceeds ``threshold``.
+    """Where sync was lost: the start of the suffix with the largest error excess.
 
-    ``flags`` ends with a window that failed, so such an error exists (its first error
-    qualifies: the suffix from there is no longer than the window and holds all its errors).
+    The excess of a suffix is its errors minus ``threshold`` times its length (Page's CUSUM
+    statistic, module reference [3], run backwards from the end). ``flags`` ends with a
+    window whose excess is positive, so the best suffix starts at an error inside the dense
+    stretch, and a lone error well before it is left to the in-sync part.
     """
-    n = len(flags)
-    after = np.count_nonzero(flags) - np.concatenate(([0], np.cumsum(flags)[:-1]))
-    ok = flags & (after > threshold * (n - np.arange(n)))
-    return int(np.argmax(ok))
+    score = np.cumsum((flags - threshold)[::-1])[::-1]
+    return int(np.argmax(score))
 
 
 @dataclass(frozen=True)
@@ -229,7 +232,7 @@ class _Tester:
         run_start = np.maximum.accumulate(np.where(starts, idx, 0))
         length = idx - run_start + 1
         if values[0] >= 0 and values[0] == self.s.run_value and self.s.run > 0:
-            pass
+            length[run_start == 0] += self.s.run
         length[values < 0] = 0
         return length
 
@@ -325,31 +328,37 @@ class _Tester:
                 self.close_packet()
 
     def close_packet(self) -> None:
-        """Judge one packet's payload (complete, or cut short by a gap or the next packet)."""
-        s = self.s
-        data, s.pending, s.packet_left = s.pending, _EMPTY, 0
-        if not len(data):
-            return
-        if s.locked:
-            errs, after = self.compare(data)
-            count = int(errs.sum())
-            if count <= self.cfg.loss_threshold * len(data):
-                self._count_packet(len(data), count, after)
-                return
-            s.sync_losses += 1
-        self.unlock(_EMPTY)
-        j = self.hunt(data)  # within this packet only: history was cleared
-        if j is None:
-            return
-        rest = data[j + 1:]
-        errs, after = self.compare(rest)
-        self._count_packet(len(rest), int(errs.sum()), after)
+        """Judge one packet's payload (complete, or cut short by a gap or the next packet).
 
-    def _count_packet(self, bits: int, errors: int, after: PrbsState) -> None:
-        s = self.s
+        A packet that fails is counted up to its loss onset when that part is trustworthy
+        (it follows a lock made inside this packet, or it matched the continuation over at
+        least ``acquire_bits``); the tester then re-acquires within the rest of the packet.
+        """
+        s, cfg = self.s, self.cfg
+        data, s.pending, s.packet_left = s.pending, _EMPTY, 0
+        if not s.locked:
+            self.unlock(_EMPTY)  # no continuity across packets is assumed when hunting
+        fresh, bits, errors = False, 0, 0
+        while len(data):
+            if not s.locked:
+                j = self.hunt(data)
+                if j is None:
+                    break
+                data, fresh = data[j + 1:], True
+                continue
+            errs, after = self.compare(data)
+            count = int(np.count_nonzero(errs))
+            if count <= cfg.loss_threshold * len(data):
+                bits, errors, s.generator = bits + len(data), errors + count, after
+                break
+            onset = _loss_onset(errs, cfg.loss_threshold)
+            keep = onset if fresh or onset >= cfg.acquire_bits else 0
+            bits, errors = bits + keep, errors + int(np.count_nonzero(errs[:keep]))
+            s.sync_losses += 1
+            self.unlock(data[:keep])
+            data, fresh = data[keep:], False
         s.bits += bits
         s.errors += errors
-        s.generator = after
         if bits:
             s.packets += 1
             s.errored_packets += int(errors > 0)
@@ -407,8 +416,8 @@ def bert_update(bits: np.ndarray, start: int, config: BertConfig,
     Raises
     ------
     ValueError
-        For bits that are not 0/1 uint8, an event outside the chunk, or a packet
-        length < 1.
+        For bits that are not 0/1 uint8, an event outside the chunk, or a negative
+        packet length.
 
     Notes
     -----
@@ -431,8 +440,8 @@ def bert_update(bits: np.ndarray, start: int, config: BertConfig,
     for index in gaps:
         events.append((int(index), 0, 0))
     for index, length in packets:
-        if int(length) < 1:
-            raise ValueError(f"packet at index {index}: payload_bits must be >= 1 "
+        if int(length) < 0:
+            raise ValueError(f"packet at index {index}: payload_bits must be >= 0 "
                              f"(got {length!r})")
         events.append((int(index), 1, int(length)))
     for index, _, _ in events:

@@ -28,9 +28,9 @@ def dc_block_design(corner_hz: float, sample_rate: float) -> tuple[np.ndarray, n
     Notes
     -----
     The first-order Butterworth high-pass by the bilinear transform with frequency
-    pre-warping [1]_ (section 7.1), obtained from ``scipy.signal.butter(1, corner_hz,
-    "highpass", fs=sample_rate)`` [2]_: a zero at DC, unit gain at half the sample rate and
-    exactly -3 dB at ``corner_hz``.
+    pre-warping [1]_ (chapter 7, the bilinear transformation; from memory), obtained from
+    ``scipy.signal.butter(1, corner_hz, "highpass", fs=sample_rate)`` [2]_: a zero at DC,
+    unit gain at half the sample rate and exactly -3 dB at ``corner_hz``.
 
     References
     ----------

@@ -108,7 +108,8 @@ def fir_decimate(x: np.ndarray, taps: np.ndarray, factor: int = 1,
 
     Notes
     -----
-    Polyphase decomposition [1]_ (section 4.3): with ``h_r[q] = h[q M + r]`` and the input
+    Polyphase decomposition [1]_ (chapter 4, polyphase representation; chapter from
+    memory): with ``h_r[q] = h[q M + r]`` and the input
     sub-streams ``x_r[i] = x[i M - r]``, ``y[m] = sum_r (h_r * x_r)[m]``, so each of the ``M``
     branches convolves ``len(x) / M`` samples with ``len(h) / M`` taps and no discarded output
     is ever computed. The result equals ``scipy.signal.upfirdn(h, x, 1, M)`` on the whole

@@ -68,9 +68,10 @@ def spectral_line(z: np.ndarray, cycles_per_sample: float, window: int,
 
     Notes
     -----
-    [1]_ eq. (15) evaluates the DFT of ``|x|**2`` at ``k = 1`` over ``L0`` symbols of an
-    integer ``N`` samples each; with the absolute sample index in the exponent the same sum
-    is taken at any real number of samples per symbol.
+    The estimator of [1]_ takes the DFT of ``|x|**2`` at ``k = 1`` over ``L0`` symbols of an
+    integer ``N`` samples each (cited from memory, no equation number); with the absolute
+    sample index in the exponent the same sum is taken at any real number of samples per
+    symbol, and windows at any chunking give the same sums.
 
     References
     ----------
@@ -97,7 +98,7 @@ def timing_phase(line: np.ndarray | complex) -> np.ndarray | float:
     -------
     float or numpy.ndarray
         The metric's symbol-rate component peaks at the absolute sample instants
-        ``(k + theta) fs / Rs`` [1]_ (eq. 16).
+        ``(k + theta) fs / Rs`` [1]_.
 
     References
     ----------
@@ -185,9 +186,10 @@ def cubic_interpolate(x: np.ndarray, positions: np.ndarray) -> np.ndarray:
     Notes
     -----
     The third-order Lagrange interpolator through the samples at ``m - 1, m, m + 1, m + 2``
-    evaluated at ``m + mu`` ``(0 <= mu < 1)``, in the Farrow structure of [1]_ (section III,
-    eq. 11 and Table I for the cubic coefficients): a polynomial in ``mu`` whose coefficients
-    are fixed FIR combinations of the four samples, evaluated by Horner's rule.
+    evaluated at ``m + mu`` ``(0 <= mu < 1)``, in the Farrow structure of [1]_ (cubic
+    Lagrange interpolator; cited from memory, no equation number): a polynomial in ``mu``
+    whose coefficients are fixed FIR combinations of the four samples, evaluated by Horner's
+    rule. The coefficients follow from the Lagrange basis polynomials through -1, 0, 1, 2.
 
     References
     ----------

@@ -33,7 +33,8 @@ class BitErrorMeter(Block):
               doc="stream: one continuous pattern; packets: payloads announced by "
                   "'packet' annotations, consecutive segments of one pattern"),
         Param("acquire_bits", int, 64, unit="bits", low=8, high=4096,
-              doc="consecutive bits that must satisfy the pattern's recurrence to lock"),
+              doc="consecutive recurrence checks that must pass to lock (false lock on "
+                  "random data: 2^-acquire_bits; lower it for very noisy links)"),
         Param("window_bits", int, 512, unit="bits", low=16, high=1 << 20,
               doc="window over which loss of sync is judged (stream framing)"),
         Param("loss_threshold", float, 0.2, low=0, high=0.5, low_open=True, high_open=True,
@@ -58,9 +59,9 @@ class BitErrorMeter(Block):
                 if note.label != "packet":
                     continue
                 length = note.data.get("payload_bits") if isinstance(note.data, dict) else None
-                if isinstance(length, bool) or not isinstance(length, int) or length < 1:
+                if isinstance(length, bool) or not isinstance(length, int) or length < 0:
                     raise ValueError(f"packet annotation at index {note.index} needs an integer "
-                                     f"payload_bits >= 1 (got {length!r})")
+                                     f"payload_bits >= 0 (got {length!r})")
                 packets.append((note.index, length))
         self._state = bert_update(chunk.samples, chunk.start, self._config, self._state,
                                   packets=packets, gaps=gaps)

@@ -103,10 +103,13 @@ class _SymbolFeed:
     @property
     def exhausted(self) -> bool:
         """Whether every symbol has been taken."""
-        if self._left == 0:
-            return True
+        return self._left == 0 or self.packets_done
+
+    @property
+    def packets_done(self) -> bool:
+        """Whether the stream ended because the last of ``packets`` was taken whole."""
         return (self._pattern == "packets" and self._packets_left == 0
-                and self._pending.shape[0] == 0)
+                and self._pending.shape[0] == 0 and self._left != 0)
 
     def _next_packet(self) -> None:
         bits, self._prbs_state = prbs_sequence(PAYLOAD_PRBS, 8 * self._payload_bytes,
@@ -186,7 +189,7 @@ class SimSource(Source):
         Param("sync_word", int, DEFAULT_SYNC_WORD, low=0, high=(1 << 32) - 1,
               doc="packet sync word (32 bits)"),
         Param("gap_symbols", int, 64, unit="symbols", low=0,
-              doc="silence before each packet"),
+              doc="silence before each packet (and after the last of `packets`)"),
         Param("clock_ppm", float, 0.0, unit="ppm", low=-1e4, high=1e4,
               doc="transmitter symbol clock error (symbol rate x (1 + ppm / 1e6))"),
         *_CHANNEL_PARAMS,
@@ -261,7 +264,11 @@ class SimSource(Source):
             need = max(1, clock.symbols_covering(upto) - done)
             codes, starts = self._feed.take(need)
             if self._feed.exhausted:
-                codes = np.concatenate([codes, np.full(self._mod.memory - 1, SILENT, np.int8)])
+                # Flush the pulse tails; after the last of a number of packets, also one more
+                # gap of silence, so a receiver's latency does not cut the last packet short.
+                tail = self._mod.memory - 1 + (self.p.gap_symbols if self._feed.packets_done
+                                               else 0)
+                codes = np.concatenate([codes, np.full(tail, SILENT, np.int8)])
                 self._tail_fed = True
             y, self._mod_state = modulate(codes, self._mod, self._mod_state)
             for k, number in starts:

@@ -1,52 +1,177 @@
-"""The recording sink: writes the stream it receives to a file."""
+"""The ``record`` sink: writes the stream it receives as a SigMF recording or a raw file.
+
+A SigMF recording is a ``.sigmf-data`` file of samples and a ``.sigmf-meta`` file describing it
+(datatype, sample rate, captures, annotations). The metadata is rewritten every few seconds of
+recorded data and at the end, each time to a temporary file renamed over the old one after the
+data it describes has been flushed; a run that is killed therefore leaves a pair that agrees for
+everything up to the last rewrite, and Ctrl-C (which ends the stream cleanly) leaves it whole.
+
+Each discontinuity of the input (a ``"gap"`` annotation, or a chunk whose ``start`` does not
+continue the one before) starts a new capture segment whose ``core:global_index`` is the input
+stream's index there. Other annotations (``"packet"``, ``"sync-lost"``, ...) become SigMF
+annotations; their details go under the optional ``phasefree:data`` key.
+"""
 
 from __future__ import annotations
 
+import json
+import logging
+import os
 from pathlib import Path
-from typing import BinaryIO
+from typing import Any, BinaryIO
 
 import numpy as np
 
+from blocks._sampleformat import encode_samples, parse_datatype
+from blocks._sigmf import DATA_KEY, metadata_document, sigmf_paths, write_metadata
 from stream.block import Block, Port, StreamSpec
-from stream.chunk import Chunk
+from stream.chunk import Annotation, Chunk
 from stream.errors import ParamError
 from stream.params import Param
 
 __all__ = ["Record"]
 
+log = logging.getLogger(__name__)
+
 
 class Record(Block):
-    """Write the incoming samples to a file (raw little-endian complex64 or float32)."""
+    """Write the incoming samples to a SigMF recording or a raw sample file."""
 
     kind = "record"
     inputs = (Port("in", ("complex64", "float32"), "samples to record"),)
     params = (
-        Param("path", str, doc="output file"),
-        Param("format", str, "raw", choices=("raw",), doc="file format"),
-        Param("overwrite", bool, True, doc="replace an existing file"),
+        Param("path", str, doc="sigmf: base name, .sigmf-meta or .sigmf-data; raw: the file"),
+        Param("format", str, "sigmf", choices=("sigmf", "raw"),
+              doc="sigmf (data and metadata files) or raw (samples only)"),
+        Param("datatype", str, None,
+              doc="SigMF datatype stored: cf32_le (default; rf32_le for real input), ci16_le, "
+                  "ci8, cu8, ..."),
+        Param("frequency_hz", float, None, unit="Hz",
+              doc="center frequency written in every capture (core:frequency)"),
+        Param("description", str, "", doc="core:description of the recording"),
+        Param("metadata_every_s", float, 5.0, unit="s", low=0, low_open=True,
+              doc="seconds of recorded data between metadata rewrites"),
+        Param("overwrite", bool, True, doc="replace an existing recording"),
     )
 
     def setup(self, inputs: dict[str, StreamSpec]) -> dict[str, StreamSpec]:
-        path = Path(self.p.path)
-        if not path.parent.exists():
-            raise ParamError("path", f"folder does not exist (got {self.p.path!r})")
-        if path.exists() and not self.p.overwrite:
-            raise ParamError("path", f"file exists and overwrite is false (got {self.p.path!r})")
+        spec = inputs["in"]
+        is_complex = spec.dtype == "complex64"
+        name = self.p.datatype or ("cf32_le" if is_complex else "rf32_le")
+        try:
+            self._fmt = parse_datatype(name)
+        except ValueError as err:
+            raise ParamError("datatype", str(err)) from None
+        if self._fmt.is_complex != is_complex:
+            need = "complex (c...)" if is_complex else "real (r...)"
+            raise ParamError("datatype", f"a {spec.dtype} input needs a {need} datatype "
+                             f"(got {name!r})")
+        if self.p.format == "sigmf":
+            self._meta, self._data = sigmf_paths(self.p.path)
+        else:
+            self._meta, self._data = None, Path(self.p.path)
+        for target in (self._data, self._meta):
+            if target is None:
+                continue
+            if not target.parent.exists():
+                raise ParamError("path", f"folder does not exist (got {self.p.path!r})")
+            if target.exists() and not self.p.overwrite:
+                raise ParamError("path", f"{target} exists and overwrite is false")
+        self._rate = spec.rate
+        self._every = max(1, round(self.p.metadata_every_s * spec.rate))
         self._file: BinaryIO | None = None
         self._written = 0
+        self._described = 0
+        self._expected: int | None = None
+        self._captures: list[dict[str, Any]] = []
+        self._notes: list[dict[str, Any]] = []
+        self._clipped = 0
+        self._nonfinite = 0
+        self._undescribed = 0
         return {}
 
+    # -- writing ----------------------------------------------------------------------------
+    def _open(self) -> BinaryIO:
+        if self._meta is not None and self._meta.exists():
+            os.remove(self._meta)        # never pair an old description with new data
+        out = open(self._data, "wb")  # noqa: SIM115 - closed in finish()
+        self._file = out
+        return out
+
     def process(self, chunk: Chunk) -> None:
-        if self._file is None:
-            self._file = open(self.p.path, "wb")  # noqa: SIM115 - closed in finish()
-        data = chunk.samples.astype(chunk.samples.dtype.newbyteorder("<"), copy=False)
-        self._file.write(memoryview(np.ascontiguousarray(data)).cast("B"))
+        out = self._file or self._open()
+        if self._expected is None or chunk.start != self._expected:
+            self._new_capture(self._written, chunk.start)
+        for note in chunk.annotations:
+            self._note(note, chunk)
+        stored, clipped, nonfinite = encode_samples(chunk.samples, self._fmt)
+        self._clipped += clipped
+        self._nonfinite += nonfinite
+        out.write(memoryview(stored.view(np.uint8)))
         self._written += len(chunk)
+        self._expected = chunk.stop
+        if self._meta is not None and self._written - self._described >= self._every:
+            self._describe()
+
+    def _new_capture(self, sample_start: int, stream_index: int) -> None:
+        capture: dict[str, Any] = {"core:sample_start": sample_start,
+                                   "core:global_index": stream_index}
+        if self.p.frequency_hz is not None:
+            capture["core:frequency"] = self.p.frequency_hz
+        if self._captures and self._captures[-1]["core:sample_start"] == sample_start:
+            self._captures[-1] = capture
+        else:
+            self._captures.append(capture)
+
+    def _note(self, note: Annotation, chunk: Chunk) -> None:
+        at = max(0, self._written + note.index - chunk.start)
+        if note.label == "gap":
+            if chunk.start <= note.index < chunk.stop:
+                self._new_capture(at, note.index)
+            return
+        count = note.data.get("sample_count") if isinstance(note.data, dict) else None
+        if isinstance(count, bool) or not isinstance(count, int) or count < 0:
+            count = 1       # an event marks the sample it happened at
+        entry: dict[str, Any] = {"core:sample_start": at, "core:sample_count": count,
+                                 "core:label": str(note.label)}
+        try:
+            json.dumps(note.data, allow_nan=False)
+        except (TypeError, ValueError):
+            self._undescribed += 1
+        else:
+            if note.data:
+                entry[DATA_KEY] = note.data
+        self._notes.append(entry)
+
+    def _describe(self) -> None:
+        """Flush the data, then replace the metadata with one describing exactly that data."""
+        assert self._file is not None and self._meta is not None
+        self._file.flush()
+        os.fsync(self._file.fileno())
+        doc = metadata_document(self._fmt.name, self._rate, self._captures, self._notes,
+                                self.p.description)
+        write_metadata(self._meta, doc)
+        self._described = self._written
 
     def finish(self) -> None:
         if self._file is None:
-            self._file = open(self.p.path, "wb")  # noqa: SIM115 - an empty recording
+            self._open()            # an empty recording is still a valid pair
+            self._new_capture(0, 0)
+        if self._meta is not None:
+            self._describe()
+        assert self._file is not None
         self._file.close()
+        if self._clipped:
+            log.warning("%s: %d samples clipped to the %s range", self._data, self._clipped,
+                        self._fmt.name)
+        if self._nonfinite:
+            log.warning("%s: %d samples were NaN or infinite", self._data, self._nonfinite)
+        if self._undescribed:
+            log.warning("%s: details of %d annotations were not JSON and were left out",
+                        self._data, self._undescribed)
 
     def readings(self) -> dict[str, int | str]:
-        return {"samples_written": self._written, "path": self.p.path}
+        return {"samples_written": self._written, "path": self.p.path,
+                "datatype": self._fmt.name, "clipped": self._clipped,
+                "nonfinite": self._nonfinite, "captures": len(self._captures),
+                "annotations": len(self._notes)}

@@ -2,7 +2,9 @@
 
 Both estimate over windows aligned to the absolute sample index and correct afterwards; there
 is no loop. Each therefore holds back up to about one estimation window of samples (its
-latency), and gives the same output for any chunking of its input.
+latency), and gives the same output for any chunking of its input. Annotations (a ``"gap"``
+among them) are passed on at the output sample that holds their input instant; a gap does not
+restart the estimators, so the window that straddles it gives one poorer estimate.
 """
 
 from __future__ import annotations

@@ -11,7 +11,7 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["Annotation", "Chunk", "DTYPES"]
+__all__ = ["DTYPES", "Annotation", "Chunk"]
 
 #: The sample types that may travel on a port, by the name used in port declarations.
 DTYPES: dict[str, np.dtype] = {

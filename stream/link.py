@@ -59,7 +59,10 @@ class LinkCounters:
 
     def statistics(self) -> LinkStatistics:
         """A frozen record of the counters."""
-        depth = max(0, self.sent - self.received - self.dropped - self.gaps)
+        # a chunk a tap dropped was never queued, yet the receiver counts its number as a gap:
+        # only the gaps beyond the drops are messages that were sent and lost on the way
+        lost = max(0, self.gaps - self.dropped)
+        depth = max(0, self.sent - self.received - lost)
         return LinkStatistics(self.label, self.tap, self.sent, self.received, self.dropped,
                               self.gaps, self.rejected, depth)
 
@@ -106,8 +109,12 @@ class Outlet:
         self.counters.sent += 1
         return True
 
-    def end(self, timeout_s: float = 2.0) -> None:
-        """Send end of stream (waits for room on links and taps alike, up to ``timeout_s``)."""
+    def end(self, timeout_s: float | None = None) -> None:
+        """Send end of stream, waiting for room on links and taps alike.
+
+        The wait lasts until the run is aborted (or ``timeout_s``, if given): a consumer that is
+        merely slow must still learn that the stream ended, or it would wait for ever.
+        """
         parts = frame.encode_end(self.seq, self.position)
         self.seq += 1
         try:

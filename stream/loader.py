@@ -27,6 +27,7 @@ from typing import Any
 from stream import registry
 from stream.errors import ParamError, PipelineError
 from stream.graph import Pipeline, parse_endpoint
+from stream.params import Param
 
 __all__ = ["PIPELINE_KEYS", "load_pipeline", "parse_override", "pipeline_from_dict"]
 
@@ -39,6 +40,7 @@ PIPELINE_KEYS = {
     "links": "list of chains 'a -> b -> c' ('~>' makes a lossy tap)",
     "queue_depth": "chunks a link holds before it applies backpressure",
 }
+_QUEUE_DEPTH = Param("queue_depth", int, 8, low=1, high=1 << 16)
 #: Keys of ``[pipeline]`` handed down to blocks that declare a parameter of the same name.
 INHERITED = ("sample_rate", "symbol_rate")
 
@@ -59,7 +61,7 @@ def parse_override(text: str) -> tuple[str, str, Any]:
     raw = raw.strip()
     try:
         value = tomllib.loads(f"v = {raw}")["v"]
-    except tomllib.TOMLDecodeError:
+    except ValueError:  # TOMLDecodeError, or an integer beyond Python's conversion limit
         value = raw
     return block_id, param.strip(), value
 
@@ -93,7 +95,7 @@ def load_pipeline(path: str | Path, overrides: Sequence[str] = ()) -> Pipeline:
         raise PipelineError("", f"cannot read: {err}", name) from None
     try:
         doc = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as err:
+    except ValueError as err:  # TOMLDecodeError, or an integer beyond Python's conversion limit
         raise PipelineError("", f"not valid TOML: {err}", name) from None
     try:
         return pipeline_from_dict(doc, overrides)
@@ -106,13 +108,17 @@ def _apply_overrides(doc: dict[str, Any], overrides: Sequence[str]) -> None:
     for text in overrides:
         block_id, param, value = parse_override(text)
         if block_id == "pipeline":
-            doc.setdefault("pipeline", {})[param] = value
-            continue
-        if not isinstance(blocks, dict) or block_id not in blocks:
+            table = doc.setdefault("pipeline", {})
+        elif not isinstance(blocks, dict) or block_id not in blocks:
             known = ", ".join(blocks) if isinstance(blocks, dict) else "none"
             raise PipelineError(f"--set {block_id}.{param}",
                                 f"unknown block {block_id!r} (blocks: {known})")
-        blocks[block_id][param] = value
+        else:
+            table = blocks[block_id]
+        if not isinstance(table, dict):
+            where = "pipeline" if block_id == "pipeline" else f"blocks.{block_id}"
+            raise PipelineError(where, "must be a table")
+        table[param] = value
 
 
 def pipeline_from_dict(doc: dict[str, Any], overrides: Sequence[str] = ()) -> Pipeline:
@@ -132,6 +138,10 @@ def pipeline_from_dict(doc: dict[str, Any], overrides: Sequence[str] = ()) -> Pi
         if key not in PIPELINE_KEYS:
             raise PipelineError(f"pipeline.{key}",
                                 f"unknown key (known: {', '.join(PIPELINE_KEYS)})")
+    try:
+        _QUEUE_DEPTH.check(head.get("queue_depth", _QUEUE_DEPTH.default))
+    except ParamError as err:
+        raise PipelineError(f"pipeline.{err.name}", err.message) from None
     pipe = Pipeline(str(head.get("name", "pipeline")))
     inherited = _inherited(head)
     blocks = doc.get("blocks")

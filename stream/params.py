@@ -102,10 +102,14 @@ class Param:
                         raise ParamError(self.name, f"must be an integer {got}")
                     value = int(value)
             else:
-                value = float(value)
+                try:
+                    value = float(value)
+                except OverflowError:  # an integer too large for a float (TOML allows it)
+                    raise ParamError(self.name, "must be a finite number (got an integer "
+                                     "too large for a float)") from None
                 if math.isnan(value) or (self.finite and math.isinf(value)):
                     raise ParamError(self.name, f"must be a finite number {got}")
-            self._check_range(value)
+            self._check_range(value, got)
         elif kind is str:
             if not isinstance(value, str):
                 raise ParamError(self.name, f"must be a string {got}")
@@ -125,8 +129,7 @@ class Param:
             raise ParamError(self.name, f"must be one of {allowed} {got}")
         return value
 
-    def _check_range(self, value: float) -> None:
-        got = f"(got {value!r})"
+    def _check_range(self, value: float, got: str) -> None:
         if self.low is not None:
             if self.low_open and not value > self.low:
                 raise ParamError(self.name, f"must be > {self.low:g} {got}")

@@ -177,7 +177,8 @@ class Runner:
                 self._forward(block, outlets)
         finally:
             if not self.aborting.is_set():
-                for _, outlet in outlets:
+                # lossless links first: an observer behind a tap must not hold up the chain's end
+                for _, outlet in sorted(outlets, key=lambda pair: pair[1].counters.tap):
                     outlet.end()
 
     def _source_loop(self, block: Source, inlets: list[Inlet],

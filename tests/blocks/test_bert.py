@@ -7,6 +7,8 @@ known exactly. Acquisition costs ``degree + acquire_bits`` uncounted bits (the d
 ``blocks/_bert.py``).
 """
 
+import itertools
+
 import numpy as np
 import pytest
 from hypothesis import given, settings
@@ -32,7 +34,7 @@ def run_kernel(bits, config, cuts=(), packets=(), gaps=()):
     """Feed ``bits`` cut at ``cuts`` (chunk starts continuous), then finish."""
     state = None
     edges = [0, *sorted({c for c in cuts if 0 < c < len(bits)}), len(bits)]
-    for a, b in zip(edges[:-1], edges[1:], strict=True):
+    for a, b in itertools.pairwise(edges):
         state = bert_update(bits[a:b], a, config, state,
                             packets=[(i, n) for i, n in packets if a <= i < b],
                             gaps=[g for g in gaps if a <= g < b])
@@ -77,7 +79,9 @@ def test_random_data_and_stuck_lines_never_lock():
 
 
 @pytest.mark.parametrize("slip", ["drop", "insert"])
-@pytest.mark.parametrize("at", [6000, 6300, 6500])  # early, middle and late in a window
+# the lock comes 79 bits in, so 512-bit windows start at 6223 and 6735: slips early, midway,
+# and late in a window (6700: too few errors there to fail it; the next window fails)
+@pytest.mark.parametrize("at", [6230, 6500, 6700, 6730])
 def test_bit_slip_costs_one_reacquisition_and_no_errors(slip, at):
     config = BertConfig(pattern="prbs15")
     rx = pattern("prbs15", 20_000, offset=999)
@@ -171,6 +175,26 @@ def test_packets_mode_counts_payload_errors_per_packet():
     assert s.sync_losses == 3  # continuation failed at packets 9, 12 and 20
 
 
+def test_packet_with_a_misread_length_is_counted_up_to_its_garbage_tail():
+    # A length byte hit by errors makes the framer pass on bits beyond the payload: those are
+    # not the pattern, and must not be counted as bit errors.
+    config = BertConfig(pattern="prbs9", framing="packets")
+    rx, notes = packet_stream(n_packets=8)
+    tail = np.random.default_rng(6).integers(0, 2, 700, dtype=np.uint8)
+    rx = np.concatenate((rx[:4 * 256], tail, rx[4 * 256:]))
+    notes = [(i, n) for i, n in notes[:3]] + [(3 * 256, 256 + 700)] + [
+        (i + 700, n) for i, n in notes[4:]]
+    rx[[3 * 256 + 100, 6 * 256 + 700 + 50]] ^= 1
+    s = run_kernel(rx, config, packets=notes)
+    acq = acquisition("prbs9", config)
+    assert s.errors == 2
+    assert s.packets == 8 and s.sync_losses == 1
+    # every true payload bit but two acquisitions (start, and after the tail), give or take
+    # the few tail bits that match the pattern by chance before the first mismatch
+    extra = s.bits - (8 * 256 - 2 * acq)
+    assert 0 <= extra <= 8
+
+
 def test_packets_mode_ignores_bits_outside_packets():
     config = BertConfig(pattern="prbs9", framing="packets")
     rx, notes = packet_stream(n_packets=6)
@@ -258,8 +282,8 @@ def test_bad_input_is_named():
         bert_update(np.zeros(10, np.int32), 0, config)
     with pytest.raises(ValueError, match="0 or 1"):
         bert_update(np.array([0, 1, 2], np.uint8), 0, config)
-    with pytest.raises(ValueError, match="payload_bits must be >= 1"):
-        bert_update(np.zeros(10, np.uint8), 0, BertConfig(framing="packets"), packets=[(0, 0)])
+    with pytest.raises(ValueError, match="payload_bits must be >= 0"):
+        bert_update(np.zeros(10, np.uint8), 0, BertConfig(framing="packets"), packets=[(0, -1)])
     with pytest.raises(ValueError, match="outside the chunk"):
         bert_update(np.zeros(10, np.uint8), 0, config, gaps=[50])
     with pytest.raises(ValueError, match="loss_threshold"):

@@ -15,7 +15,8 @@ FS = 48_000.0
 def test_design_is_the_bilinear_first_order_highpass(corner):
     # Reference: the bilinear transform of H(s) = s / (s + wc) with pre-warping,
     # K = tan(pi fc / fs): b = [1, -1] / (1 + K), a = [1, (K - 1) / (K + 1)]
-    # (Oppenheim & Schafer, Discrete-Time Signal Processing, 3rd ed., sec. 7.1; from memory).
+    # (Oppenheim & Schafer, Discrete-Time Signal Processing, 3rd ed., ch. 7, bilinear
+    # transformation; from memory).
     b, a = dc_block_design(corner, FS)
     k = np.tan(np.pi * corner / FS)
     np.testing.assert_allclose(b, np.array([1.0, -1.0]) / (1 + k), rtol=1e-12)

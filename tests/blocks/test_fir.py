@@ -73,7 +73,7 @@ def test_short_chunks_keep_the_output_phase():
 def test_antialias_cutoff_is_at_the_requested_edge():
     # firwin places the -6 dB point at the cut-off (scipy.signal.firwin documentation).
     h = antialias_taps(4, cutoff=0.2, numtaps=201)
-    w, resp = signal.freqz(h, worN=[0.2 * np.pi])
+    _, resp = signal.freqz(h, worN=[0.2 * np.pi])
     assert 20 * np.log10(abs(resp[0])) == pytest.approx(-6.02, abs=0.1)
 
 

@@ -85,7 +85,7 @@ def test_clean_ook_has_exact_levels_and_carrier_offset():
 def test_packets_carry_prbs9_payloads_and_are_annotated():
     # OOK with integer samples per symbol, no noise: mid-symbol amplitude decisions from each
     # annotation give exactly packet_bits(payload) with payloads the consecutive bytes of one
-    # ITU-T O.150 2^9-1 sequence, and silence between packets.
+    # ITU-T O.150 2^9-1 sequence, and silence between packets and after the last one.
     sps, gap, payload = 8, 40, 5
     y, notes, block = run_sim(modulation="ook", symbol_rate=1000.0, sample_rate=8000.0,
                               pattern="packets", payload_bytes=payload, gap_symbols=gap,
@@ -95,7 +95,8 @@ def test_packets_carry_prbs9_payloads_and_are_annotated():
     assert all(a.data["payload_bytes"] == payload for a in notes)
     stream, _ = prbs_sequence("prbs9", 4 * payload * 8)
     length = len(packet_bits(bytes(payload)))
-    assert len(y) == 4 * (gap + length) * sps
+    assert len(y) == (4 * (gap + length) + gap) * sps    # a last gap closes the stream
+    np.testing.assert_array_equal(y[-gap * sps:], 0)
     for i, note in enumerate(notes):
         assert note.index == (gap + i * (gap + length)) * sps
         body = np.packbits(stream[i * payload * 8:(i + 1) * payload * 8]).tobytes()

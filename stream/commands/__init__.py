@@ -1,0 +1,1 @@
+"""Sub-commands of ``phasefree``; each module has ``HELP``, ``add_arguments`` and ``main``."""
