@@ -182,6 +182,14 @@ class Block:
         """Block-specific figures (BER, estimates, counts) for status and summary."""
         return {}
 
+    def views(self) -> dict[str, Any]:
+        """Bulky figures (eye histogram, spectrum, BER history) for the monitor and snapshots.
+
+        Kept out of ``readings`` so the once-a-second status lines stay small. Values must be
+        JSON-serialisable (lists, not arrays).
+        """
+        return {}
+
     # -- output ------------------------------------------------------------------------------
     def emit(self, samples: np.ndarray, port: str | None = None,
              annotations: tuple[Annotation, ...] | list[Annotation] = ()) -> None:

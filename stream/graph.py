@@ -53,10 +53,13 @@ class Pipeline:
     ----------
     name : str
         Name shown in status and summary.
+    queue_depth : int
+        Chunks each link holds before its producer waits.
     """
 
-    def __init__(self, name: str = "pipeline") -> None:
+    def __init__(self, name: str = "pipeline", queue_depth: int = 8) -> None:
         self.name = name
+        self.queue_depth = queue_depth
         self.blocks: dict[str, Block] = {}
         self.edges: list[Edge] = []
         self._keys: dict[str, str] = {}

@@ -139,10 +139,10 @@ def pipeline_from_dict(doc: dict[str, Any], overrides: Sequence[str] = ()) -> Pi
             raise PipelineError(f"pipeline.{key}",
                                 f"unknown key (known: {', '.join(PIPELINE_KEYS)})")
     try:
-        _QUEUE_DEPTH.check(head.get("queue_depth", _QUEUE_DEPTH.default))
+        depth = _QUEUE_DEPTH.check(head.get("queue_depth", _QUEUE_DEPTH.default))
     except ParamError as err:
         raise PipelineError(f"pipeline.{err.name}", err.message) from None
-    pipe = Pipeline(str(head.get("name", "pipeline")))
+    pipe = Pipeline(str(head.get("name", "pipeline")), queue_depth=depth)
     inherited = _inherited(head)
     blocks = doc.get("blocks")
     if not isinstance(blocks, dict) or not blocks:

@@ -40,17 +40,18 @@ class Runner:
     ----------
     pipeline : Pipeline
         A validated pipeline (``Pipeline.validate`` or the loader has configured it).
-    queue_depth : int
-        Chunks a link holds (per end) before the producer waits.
+    queue_depth : int or None
+        Chunks a link holds (per end) before the producer waits (default: the pipeline's).
     drain_s : float
         How long a stop may take to drain before the run is aborted.
     """
 
-    def __init__(self, pipeline: Pipeline, queue_depth: int = 8, drain_s: float = 1.5) -> None:
+    def __init__(self, pipeline: Pipeline, queue_depth: int | None = None,
+                 drain_s: float = 1.5) -> None:
         if not pipeline.validated:
             pipeline.validate()
         self.pipeline = pipeline
-        self.queue_depth = queue_depth
+        self.queue_depth = queue_depth or pipeline.queue_depth
         self.drain_s = drain_s
         self.stopping = threading.Event()
         self.aborting = threading.Event()
@@ -59,6 +60,7 @@ class Runner:
         self.failure_trace = ""
         self.links: dict[str, LinkCounters] = {}
         self._readings: dict[str, dict[str, Any]] = {bid: {} for bid in pipeline.blocks}
+        self._views: dict[str, dict[str, Any]] = {bid: {} for bid in pipeline.blocks}
         self._threads: list[threading.Thread] = []
         self._t0 = 0.0
         self._t_end: float | None = None
@@ -233,6 +235,7 @@ class Runner:
             snap = dict(block.readings())
             snap["_t"] = now
             self._readings[block.id] = snap
+            self._views[block.id] = block.views()
 
     # -- reporting ----------------------------------------------------------------------------
     def elapsed(self) -> float:
@@ -260,6 +263,10 @@ class Runner:
             "blocks": {bid: self.block_status(bid) for bid in self.pipeline.blocks},
             "links": {label: vars(c.statistics()) for label, c in self.links.items()},
         }
+
+    def views(self) -> dict[str, dict[str, Any]]:
+        """Each block's bulky figures (``Block.views``) as last refreshed by its thread."""
+        return {bid: v for bid, v in self._views.items() if v}
 
     def summary(self) -> dict[str, Any]:
         """The end-of-run record (``event: summary``)."""

@@ -90,6 +90,11 @@ def _fill(outlet: Outlet, abort: threading.Event) -> int:
     return sent
 
 
+def _fill_tap(outlet: Outlet, offers: int = 40) -> int:
+    """Offer ``offers`` chunks to a tap nobody reads; return how many it queued."""
+    return sum(outlet.send(_chunk(i)) for i in range(offers))
+
+
 GARBAGE = [
     pytest.param([b""], id="empty-part"),
     pytest.param([b"junk"], id="short-header"),
@@ -189,7 +194,7 @@ def test_tap_depth_counts_what_is_queued_despite_drops(ctx):
     # depth is what was sent and not yet received; chunks the tap dropped were never queued
     outlet, inlet, _ = _open(ctx, tap=True, depth=2)
     try:
-        accepted = sum(outlet.send(_chunk(i)) for i in range(20))
+        accepted = _fill_tap(outlet)
         assert outlet.counters.dropped > 0
         assert outlet.counters.statistics().depth == accepted
         _receive(inlet)
@@ -197,7 +202,7 @@ def test_tap_depth_counts_what_is_queued_despite_drops(ctx):
         for _ in range(accepted - 1):
             _receive(inlet)
         assert outlet.counters.statistics().depth == 0
-        _send_when_room(outlet, _chunk(20))  # after the gap is seen, depth is still right
+        _send_when_room(outlet, _chunk(40))  # after the gap is seen, depth is still right
         assert outlet.counters.statistics().depth == 1
         _receive(inlet)
         assert outlet.counters.statistics().depth == 0
@@ -236,10 +241,7 @@ def test_end_of_stream_waits_for_room(ctx, tap):
     """A consumer slower than a couple of seconds per chunk still learns the stream ended."""
     outlet, inlet, abort = _open(ctx, tap=tap, depth=1)
     try:
-        if tap:
-            queued = sum(outlet.send(_chunk(i)) for i in range(10))
-        else:
-            queued = _fill(outlet, abort)
+        queued = _fill_tap(outlet) if tap else _fill(outlet, abort)
         ender = threading.Thread(target=outlet.end, daemon=True)
         ender.start()
         ender.join(2.5)                       # longer than the old 2 s give-up time

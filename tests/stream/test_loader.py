@@ -225,10 +225,16 @@ def test_sample_rate_missing_everywhere(tmp_path):
 
 # -- links ------------------------------------------------------------------------------------
 
-@pytest.mark.parametrize("chain", ["src => amp => sink", "src -> -> sink", "src ->", "src",
-                                   "src -> amp.2x -> sink", "src -> a b -> sink"])
-def test_bad_link_syntax(tmp_path, chain):
-    _fails(tmp_path, _with_links(chain), "pipeline.links[0]", chain)
+@pytest.mark.parametrize(("chain", "words"), [
+    ("src => amp => sink", "expected 'a -> b [-> c ...]' (got 'src => amp => sink')"),
+    ("src -> -> sink", "expected 'a -> b"),
+    ("src ->", "expected 'a -> b"),
+    ("src", "expected 'a -> b"),
+    ("src -> amp.2x -> sink", "bad endpoint 'amp.2x' (write id or id.port)"),
+    ("src -> a b -> sink", "bad endpoint 'a b'"),
+])
+def test_bad_link_syntax(tmp_path, chain, words):
+    _fails(tmp_path, _with_links(chain), "pipeline.links[0]", words)
 
 
 def test_link_that_is_not_a_string(tmp_path):
@@ -256,7 +262,130 @@ def test_ambiguous_port(tmp_path):
 
 def test_input_fed_twice(tmp_path):
     blocks = BLOCKS + '\n[blocks.src2]\nkind = "tone"\n'
-    _fails(tmp_path, _with_links("src -> amp -> sink", "src2 -> amp"), "pipeline.links[1]",
-           "input amp.in is fed twice") if False else _fails(
-        tmp_path, _with_links("src -> amp -> sink", "src2 -> amp", blocks=blocks),
-        "pipeline.links[1]", "input amp.in is fed twice")
+    _fails(tmp_path, _with_links("src -> amp -> sink", "src2 -> amp", blocks=blocks),
+           "pipeline.links[1]", "input amp.in is fed twice")
+
+
+def test_input_not_connected(tmp_path):
+    blocks = BLOCKS + '\n[blocks.spare]\nkind = "gain"\n'
+    _fails(tmp_path, _with_links("src -> amp -> sink", "spare -> sink2",
+                                 blocks=blocks + '\n[blocks.sink2]\nkind = "discard"\n'),
+           "blocks.spare", "input port spare.in is not connected")
+
+
+def test_output_not_connected(tmp_path):
+    blocks = BLOCKS.replace('\n[blocks.sink]\nkind = "discard"\n', "")
+    _fails(tmp_path, _with_links("src -> amp", blocks=blocks), "blocks.amp",
+           "output port amp.out is not connected")
+
+
+def test_dtype_mismatch(tmp_path):
+    blocks = BLOCKS.replace('kind = "tone"\nsamples = 4_800', f'kind = "{kinds.Bits.kind}"')
+    _fails(tmp_path, _with_links("src -> amp -> sink", blocks=blocks), "pipeline.links[0]",
+           "dtype mismatch on src.out -> amp.in: src.out gives uint8, "
+           "amp.in takes complex64 | float32")
+
+
+def test_rate_mismatch_between_two_inputs(tmp_path):
+    blocks = BLOCKS + (f'\n[blocks.join]\nkind = "{kinds.Join.kind}"\n'
+                       '\n[blocks.slow]\nkind = "tone"\nsample_rate = 32_000\n')
+    _fails(tmp_path, _with_links("src -> amp -> join.a", "slow -> join.b", "join -> sink",
+                                 blocks=blocks),
+           "blocks.join", "rate mismatch between inputs: a at 48000, b at 32000 samples/s")
+
+
+def test_cycle(tmp_path):
+    blocks = BLOCKS + f'\n[blocks.join]\nkind = "{kinds.Join.kind}"\n'
+    # join.out -> amp -> join.b closes a loop; sink is fed by nothing else, so drop it
+    blocks = blocks.replace('\n[blocks.sink]\nkind = "discard"\n', "")
+    _fails(tmp_path, _with_links("src -> join.a", "join -> amp -> join.b", blocks=blocks),
+           "pipeline.links", "links form a cycle through amp, join")
+
+
+# -- --set overrides --------------------------------------------------------------------------
+
+def test_overrides_are_applied(tmp_path):
+    pipe = load_pipeline(_file(tmp_path, GOOD), ["amp.gain_db=6", "src.samples=100",
+                                                 "pipeline.name=renamed", "src.dtype=float32"])
+    assert pipe.blocks["amp"].p.gain_db == 6.0
+    assert pipe.blocks["src"].p.samples == 100
+    assert pipe.blocks["src"].p.dtype == "float32"          # a bare word is a string
+    assert pipe.name == "renamed"
+    assert pipe.edges[0].spec.dtype == "float32"            # applied before validation
+
+
+def test_override_does_not_change_the_parsed_document():
+    doc = {"pipeline": {"sample_rate": 48_000, "links": ["src -> sink"]},
+           "blocks": {"src": {"kind": "tone"}, "sink": {"kind": "discard"}}}
+    pipeline_from_dict(doc, ["src.samples=7", "pipeline.name=other"])
+    assert doc["blocks"]["src"] == {"kind": "tone"}
+    assert "name" not in doc["pipeline"]
+
+
+def test_override_with_a_bad_value_names_its_key_path(tmp_path):
+    _fails(tmp_path, GOOD, "blocks.amp.gain_db", "must be a number (got 'loud')",
+           ("amp.gain_db=loud",))
+
+
+def test_override_out_of_range(tmp_path):
+    _fails(tmp_path, GOOD, "blocks.src.sample_rate", "must be > 0 (got -5)",
+           ("src.sample_rate=-5",))
+
+
+def test_override_of_an_unknown_parameter(tmp_path):
+    _fails(tmp_path, GOOD, "blocks.amp.gian_db", "unknown parameter", ("amp.gian_db=1",))
+
+
+def test_override_of_an_unknown_block(tmp_path):
+    err = _fails(tmp_path, GOOD, "--set amq.gain_db", "unknown block 'amq'", ("amq.gain_db=1",))
+    assert "src, amp, sink" in err.message
+
+
+def test_override_of_an_unknown_pipeline_key(tmp_path):
+    _fails(tmp_path, GOOD, "pipeline.colour", "unknown key", ("pipeline.colour=red",))
+
+
+def test_override_on_a_block_that_is_not_a_table(tmp_path):
+    text = HEAD + 'links = ["src -> sink"]\n' + "[blocks]\nsrc = 5\n"
+    _fails(tmp_path, text, "blocks.src", "must be a table", ("src.samples=1",))
+
+
+@pytest.mark.parametrize("text", ["amp", "amp=1", "amp.=1", ".gain_db=1", "=1", "amp.gain_db"])
+def test_malformed_override(tmp_path, text):
+    _fails(tmp_path, GOOD, "--set", "expected id.param=value", (text,))
+
+
+# -- parse_override ---------------------------------------------------------------------------
+
+@pytest.mark.parametrize(("text", "value"), [
+    ("src.samples=100", 100),
+    ("src.samples=1_000", 1000),                 # TOML integer with separators
+    ("src.samples=0x10", 16),                    # TOML hexadecimal integer
+    ("amp.gain_db=-3.5", -3.5),
+    ("src.sample_rate=1e6", 1e6),
+    ("src.realtime=true", True),
+    ("src.realtime=false", False),
+    ("src.realtime=True", "True"),               # TOML booleans are lower case: a bare word
+    ("src.modulation=ook", "ook"),               # bare word
+    ("src.modulation=2fsk", "2fsk"),             # not a number: a bare word
+    ('rec.path="out file.raw"', "out file.raw"),  # basic string
+    (r"rec.path='C:\data'", r"C:\data"),        # literal string: no escapes
+    ("rec.path=a=b", "a=b"),                     # only the first '=' separates
+    ("det.taps=[1, 2.5, -3]", [1, 2.5, -3]),
+    ('det.names=["a", "b"]', ["a", "b"]),
+    ("det.taps=[]", []),
+])
+def test_parse_override_values(text, value):
+    block_id, param, parsed = parse_override(text)
+    assert (block_id, param) == (text.split(".", 1)[0], text.split(".", 1)[1].split("=")[0])
+    assert parsed == value and type(parsed) is type(value)
+
+
+def test_parse_override_trims_spaces_and_reads_nan():
+    assert parse_override("  src.samples = 7 ") == ("src", "samples", 7)
+    block_id, param, value = parse_override("amp.gain_db=nan")
+    assert (block_id, param) == ("amp", "gain_db") and math.isnan(value)
+
+
+def test_parse_override_of_the_pipeline_table():
+    assert parse_override("pipeline.name=night-run") == ("pipeline", "name", "night-run")
