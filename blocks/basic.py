@@ -20,7 +20,8 @@ class ToneSource(Source):
 
     kind = "tone"
     outputs = (Port("out", ("complex64", "float32"), "the test signal"),)
-    params: ClassVar[tuple[Param, ...]] = Source.common_params + (
+    params: ClassVar[tuple[Param, ...]] = (
+        *Source.common_params,
         Param("frequency_hz", float, 1000.0, unit="Hz", doc="tone frequency"),
         Param("amplitude", float, 1.0, low=0, doc="tone amplitude (0 for noise only)"),
         Param("noise_power", float, 0.0, low=0, doc="noise variance per sample"),

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-from importlib import resources
 from pathlib import Path
 
 __all__ = ["DEFAULT_PIPELINE", "shipped_dir", "shipped_pipeline"]
@@ -17,10 +16,11 @@ def shipped_dir() -> Path:
     A source checkout (or editable install) uses the repository's ``configs/``; a regular
     install uses the copy packaged as ``stream.configs``.
     """
-    checkout = Path(__file__).resolve().parent.parent / "configs"
+    here = Path(__file__).resolve().parent
+    checkout = here.parent / "configs"
     if (checkout / DEFAULT_PIPELINE).is_file():
         return checkout
-    return Path(str(resources.files("stream.configs")))
+    return here / "configs"  # installed: package-data of ``stream.configs``
 
 
 def shipped_pipeline(name: str = DEFAULT_PIPELINE) -> Path:

@@ -11,6 +11,7 @@ Every stateful block must give the same output whatever the chunk boundaries. Te
 from __future__ import annotations
 
 from collections.abc import Callable, Sequence
+from itertools import pairwise
 from typing import Any
 
 import numpy as np
@@ -34,7 +35,7 @@ def make_block(kind: str, block_id: str = "", **params: Any) -> Block:
 def split(signal: np.ndarray, cuts: Sequence[int]) -> list[np.ndarray]:
     """Split ``signal`` at the sorted, de-duplicated positions ``cuts``."""
     edges = [0, *sorted({c for c in cuts if 0 < c < len(signal)}), len(signal)]
-    return [signal[a:b] for a, b in zip(edges[:-1], edges[1:], strict=True)]
+    return [signal[a:b] for a, b in pairwise(edges)]
 
 
 def run_block(block: Block, pieces: Sequence[np.ndarray], rate: float,

@@ -75,6 +75,12 @@ def test_good_file_loads_validated_with_pipeline_defaults(tmp_path):
     assert all(e.spec is not None and e.spec.rate == 48_000 for e in pipe.edges)
 
 
+def test_queue_depth_reaches_the_pipeline(tmp_path):
+    text = GOOD.replace("sample_rate = 48_000", "sample_rate = 48_000\nqueue_depth = 3")
+    assert load_pipeline(_file(tmp_path, text)).queue_depth == 3
+    assert load_pipeline(_file(tmp_path, GOOD)).queue_depth == 8     # the documented default
+
+
 def test_tap_arrow_makes_a_tap(tmp_path):
     text = _with_links("src -> amp -> sink", "src ~> eye",
                        blocks=BLOCKS + '\n[blocks.eye]\nkind = "discard"\n')

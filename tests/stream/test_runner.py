@@ -217,7 +217,7 @@ def test_backpressure_keeps_every_link_within_its_bound():
     # queue_depth chunks at each end of a link; depth counts the one message a consumer has
     # taken off its socket but not yet counted as received, so it may read one more
     bound = 2 * depth + 1
-    pipe = Pipeline("backpressure")
+    pipe = Pipeline("backpressure", queue_depth=depth)   # the runner takes it from here
     pipe.add(ToneSource("src", sample_rate=RATE, samples=count * chunk, chunk_size=chunk))
     pipe.add(Probe("probe"))
     pipe.add(Slow("slow", delay_s=0.003))
@@ -236,8 +236,9 @@ def test_backpressure_keeps_every_link_within_its_bound():
         blocks = status["blocks"]
         ahead.append(blocks["src"]["samples_out"] - blocks["sink"]["samples_in"])
 
-    summary = Runner(pipe, queue_depth=depth).run(seconds=LIMIT_S, on_status=sample,
-                                                  status_interval=0.005)
+    runner = Runner(pipe)
+    assert runner.queue_depth == depth
+    summary = runner.run(seconds=LIMIT_S, on_status=sample, status_interval=0.005)
 
     assert summary["reason"] == "end-of-stream"
     assert summary["blocks"]["sink"]["samples_in"] == count * chunk
