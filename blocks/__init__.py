@@ -9,6 +9,7 @@ from blocks import (  # noqa: F401  (registers kinds)
     detectors,
     framing,
     meters,
+    recording,
     simulator,
     sinks,
     sync,

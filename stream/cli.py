@@ -18,6 +18,7 @@ COMMANDS = {
     "run": "run",
     "check": "check",
     "blocks": "kinds",
+    "sweep": "sweep",
     "budget": "budget",
 }
 

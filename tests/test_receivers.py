@@ -24,7 +24,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from scipy.special import ndtr
+from scipy.special import i0e, ndtr
 from scipy.stats import binomtest, ncx2
 
 from blocks._prbs import prbs_sequence
@@ -85,8 +85,6 @@ def dqpsk(ebn0_db: float) -> float:
     survival function of the noncentral chi-square law with 2 degrees of freedom at b^2,
     noncentrality a^2 (Proakis & Salehi sec. 2.3); I0(ab) exp(-(a^2+b^2)/2) is written with
     the exponentially scaled Bessel function to avoid overflow."""
-    from scipy.special import i0e
-
     g = 10 ** (ebn0_db / 10)
     a = math.sqrt(2 * g * (1 - 1 / math.sqrt(2)))
     b = math.sqrt(2 * g * (1 + 1 / math.sqrt(2)))
