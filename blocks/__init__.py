@@ -9,6 +9,8 @@ from blocks import (  # noqa: F401  (registers kinds)
     detectors,
     framing,
     meters,
+    observe,
+    radio,
     recording,
     simulator,
     sinks,

@@ -8,6 +8,7 @@ convolution, and a decimator keeps its output phase tied to the absolute input i
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 
 import numpy as np
@@ -27,10 +28,14 @@ class FirState:
         ``padded_taps`` is the tap count rounded up to a multiple of the factor.
     skip : int
         Input samples still to pass before the next kept output, ``0 .. factor - 1``.
+    phase : int
+        Outputs produced so far, modulo the outputs per block row of the computation, so
+        each output is summed in the same order whatever the chunking.
     """
 
     tail: np.ndarray
     skip: int = 0
+    phase: int = 0
 
 
 def antialias_taps(factor: int, cutoff: float | None = None,
@@ -75,11 +80,94 @@ def antialias_taps(factor: int, cutoff: float | None = None,
     return signal.firwin(numtaps, cutoff, window=("kaiser", 5.0))
 
 
-def _padded(taps: np.ndarray, factor: int) -> np.ndarray:
-    phases = -(-taps.shape[0] // factor)
-    padded = np.zeros(phases * factor, dtype=taps.dtype)
-    padded[: taps.shape[0]] = taps
-    return padded
+# Block layout of the polyphase product (see ``_BlockPlan``): at least this many input samples
+# per block row, so that each matrix product has a useful inner dimension.
+_MIN_BLOCK = 20
+# Outputs per matrix product, about; each product handles the same number of block rows.
+_PERIOD = 1024
+# Largest m * n * k of one matrix product. OpenBLAS threads a product above 4 * 65536
+# multiply-adds (interface/gemm.c with the default GEMM_MULTITHREAD_THRESHOLD = 4, from its
+# source); every block already runs in its own thread, so a threaded product only contends
+# for the cores. Smaller products also keep their operands in cache.
+_PRODUCT_LIMIT = 1 << 18
+
+
+@dataclass(frozen=True)
+class _BlockPlan:
+    """Taps rearranged once for the blocked polyphase product of ``fir_decimate``.
+
+    The input is cut into block rows of ``block = outs * factor`` samples; output
+    ``i * outs + t`` needs rows ``i .. i + depth - 1``, weighted by ``matrix[t * depth + q]``
+    for row ``i + q``. Each matrix product takes ``rows`` block rows, and ``period`` outputs
+    fill one product.
+    """
+
+    factor: int
+    block: int
+    outs: int
+    depth: int
+    length: int
+    rows: int
+    matrix: np.ndarray
+
+    @property
+    def period(self) -> int:
+        """Outputs per matrix product; the stream's output count modulo this aligns them."""
+        return self.rows * self.outs
+
+
+@functools.lru_cache(maxsize=64)
+def _block_plan(key: bytes, factor: int) -> _BlockPlan:
+    h = np.frombuffer(key, dtype=np.float32)
+    length = -(-h.shape[0] // factor) * factor           # taps padded to a multiple of M
+    reversed_taps = np.zeros(length, np.float32)
+    reversed_taps[length - h.shape[0]:] = h[::-1]       # g[j] = h_padded[length - 1 - j]
+    outs = max(1, -(-_MIN_BLOCK // factor))
+    block = outs * factor
+    depth = -(-(length + (outs - 1) * factor) // block)
+    t, q, c = np.meshgrid(np.arange(outs), np.arange(depth), np.arange(block), indexing="ij")
+    j = q * block + c - t * factor
+    inside = (j >= 0) & (j < length)
+    matrix = np.where(inside, reversed_taps[np.clip(j, 0, length - 1)], np.float32(0))
+    matrix = matrix.reshape(outs * depth, block).astype(np.float32)
+    matrix.setflags(write=False)
+    # complex rows are two float32 columns each
+    rows = max(1, min(_PERIOD // outs, _PRODUCT_LIMIT // (2 * matrix.size)))
+    return _BlockPlan(factor, block, outs, depth, length, rows, matrix)
+
+
+def _blocked_products(plan: _BlockPlan, s: np.ndarray, nout: int, lead: int) -> np.ndarray:
+    """``y[i] = sum_j g[j] s[i M + j]``, ``i < nout`` (``g`` the reversed padded taps).
+
+    ``lead`` outputs (of zeros) are computed first and dropped. The caller passes the stream's
+    output count modulo ``plan.period``, so every output lands at the same place in a matrix
+    product of the same shape, and is summed in the same order, however the stream is cut.
+    """
+    outs, block, depth = plan.outs, plan.block, plan.depth
+    dtype = np.complex64 if np.iscomplexobj(s) else np.float32
+    pairs = 2 if dtype is np.complex64 else 1
+    rows_out = -(-(lead + nout) // outs)
+    rows = -(-(rows_out + depth - 1) // plan.rows) * plan.rows
+    padded = np.zeros(rows * block, dtype)
+    used = min(s.shape[0], padded.shape[0] - lead * plan.factor)
+    padded[lead * plan.factor: lead * plan.factor + used] = s[:used]
+    # (block, rows): column i is block row i; complex samples as (re, im) float32 pairs so the
+    # real taps multiply both parts in one real product
+    flat = np.ascontiguousarray(padded.reshape(rows, block).T).view(np.float32)
+    m = plan.matrix
+    z = np.empty((m.shape[0], flat.shape[1]), np.float32)
+    step = plan.rows * pairs
+    for a in range(0, flat.shape[1], step):
+        np.matmul(m, flat[:, a:a + step], out=z[:, a:a + step])
+    zs = z.view(dtype)
+    out = np.empty((outs, rows_out), dtype)
+    for t in range(outs):
+        acc = out[t]
+        acc[:] = zs[t * depth, :rows_out]
+        for q in range(1, depth):
+            acc += zs[t * depth + q, q:q + rows_out]
+    y = out.T.reshape(-1) if outs > 1 else out[0]
+    return y[lead:lead + nout]
 
 
 def fir_decimate(x: np.ndarray, taps: np.ndarray, factor: int = 1,
@@ -108,12 +196,13 @@ def fir_decimate(x: np.ndarray, taps: np.ndarray, factor: int = 1,
 
     Notes
     -----
-    Polyphase decomposition [1]_ (chapter 4, polyphase representation; chapter from
-    memory): with ``h_r[q] = h[q M + r]`` and the input
-    sub-streams ``x_r[i] = x[i M - r]``, ``y[m] = sum_r (h_r * x_r)[m]``, so each of the ``M``
-    branches convolves ``len(x) / M`` samples with ``len(h) / M`` taps and no discarded output
-    is ever computed. The result equals ``scipy.signal.upfirdn(h, x, 1, M)`` on the whole
-    stream (truncated to the outputs whose input has arrived).
+    Polyphase decomposition [1]_ (chapter 4, polyphase representation; chapter from memory):
+    only the kept outputs are computed. The input is cut into rows of ``B = b M`` samples
+    (``b`` outputs per row) and ``y[i b + t] = sum_q H[t, q] . row[i + q]``, where ``H[t, q]``
+    holds the taps that meet row ``i + q``: one real matrix product of the rearranged taps
+    with the rows (complex samples as float32 pairs), then ``b * Q`` shifted vector sums. The
+    result equals ``scipy.signal.upfirdn(h, x, 1, M)`` on the whole stream (truncated to the
+    outputs whose input has arrived), to float32 rounding.
 
     References
     ----------
@@ -121,27 +210,21 @@ def fir_decimate(x: np.ndarray, taps: np.ndarray, factor: int = 1,
     """
     if int(factor) != factor or factor < 1:
         raise ValueError(f"factor must be an integer >= 1 (got {factor!r})")
-    h = _padded(np.asarray(taps, dtype=np.float32), factor)
-    phases = h.shape[0] // factor
-    history = h.shape[0] - 1
+    h = np.ascontiguousarray(taps, dtype=np.float32)
+    plan = _block_plan(h.tobytes(), int(factor))
+    history = plan.length - 1
     if state is None:
         state = FirState(np.zeros(history, dtype=x.dtype))
     buf = np.concatenate((state.tail, x)) if history else np.asarray(x)
     count = x.shape[0]
     nout = max(0, -(-(count - state.skip) // factor))
     if nout:
-        first = history + state.skip
-        y = None
-        for r in range(factor):
-            start = first - r - (phases - 1) * factor
-            branch = buf[start: start + (nout + phases - 1) * factor: factor]
-            part = signal.convolve(branch, h[r::factor], mode="valid")
-            y = part if y is None else np.add(y, part, out=y)
+        y = _blocked_products(plan, buf[state.skip:], nout, state.phase)
         y = y.astype(x.dtype, copy=False)
     else:
         y = np.zeros(0, dtype=x.dtype)
     tail = buf[buf.shape[0] - history:].copy() if history else state.tail
-    return y, FirState(tail, (state.skip - count) % factor)
+    return y, FirState(tail, (state.skip - count) % factor, (state.phase + nout) % plan.period)
 
 
 def fir_filter(x: np.ndarray, taps: np.ndarray,

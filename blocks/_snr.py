@@ -40,7 +40,7 @@ __all__ = [
 
 #: Iteration limit and relative tolerance of the OOK maximum-likelihood fit.
 FIT_ITERATIONS = 200
-FIT_TOLERANCE = 1e-6
+FIT_TOLERANCE = 1e-4
 
 
 def m2m4_powers(m2: float, m4: float, dims: int = 1) -> tuple[float, float]:
@@ -154,14 +154,20 @@ def _start_levels(z: np.ndarray) -> tuple[float, float, float]:
     return max(signal, 1e-12 * noise), max(noise, 1e-300), min(max(fraction, 0.01), 0.99)
 
 
-def ook_level_fit(z: np.ndarray, iterations: int = FIT_ITERATIONS,
-                  tolerance: float = FIT_TOLERANCE) -> OokFit:
+def ook_level_fit(z: np.ndarray, start: OokFit | None = None, on_fraction: float | None = None,
+                  iterations: int = FIT_ITERATIONS, tolerance: float = FIT_TOLERANCE) -> OokFit:
     """Fit the on/off level statistics of OOK symbol energies by maximum likelihood.
 
     Parameters
     ----------
     z : numpy.ndarray
         Energies ``|y|^2`` of one sample per symbol after the matched filter (at least 8).
+    start : OokFit or None
+        Where to start the iteration, e.g. the fit of the previous window of the same stream
+        (fewer iterations); None: the energy detector's levels (see Notes).
+    on_fraction : float or None
+        Known fraction of "on" symbols (0.5 for equiprobable bits), held fixed; None: fitted
+        too. Fixing it makes the fit far steadier where the clusters overlap.
     iterations : int
         Most EM iterations.
     tolerance : float
@@ -185,7 +191,7 @@ def ook_level_fit(z: np.ndarray, iterations: int = FIT_ITERATIONS,
     - M-step: ``pi = mean(w)``, ``A = sum(w sqrt(z) I1/I0) / sum(w)``, and ``sigma^2`` the mean
       expected ``|n|^2``: ``z`` for "off", ``z - 2 A sqrt(z) I1/I0 + A^2`` for "on".
 
-    The start is the energy detector's level estimate (``estimate_levels``), which the fit
+    The default start is the energy detector's level estimate (``estimate_levels``), which the fit
     then frees from the bias of splitting at a threshold, so it stays usable where the two
     energy clusters overlap (on-symbol SNR of a few dB).
 
@@ -197,17 +203,27 @@ def ook_level_fit(z: np.ndarray, iterations: int = FIT_ITERATIONS,
     z = np.asarray(z, dtype=np.float64)
     if z.shape[0] < 8:
         raise ValueError(f"z must hold at least 8 energies (got {z.shape[0]})")
-    signal, noise, fraction = _start_levels(z)
+    if start is None:
+        signal, noise, fraction = _start_levels(z)
+    else:
+        signal, noise = start.signal, start.noise
+        fraction = min(max(start.on_fraction, 0.01), 0.99)
+    if on_fraction is not None:
+        if not 0.0 < on_fraction < 1.0:
+            raise ValueError(f"on_fraction must be in (0, 1) (got {on_fraction!r})")
+        fraction = float(on_fraction)
     root = np.sqrt(z)
     n = z.shape[0]
     done = 0
-    for done in range(1, iterations + 1):
+    while done < iterations:
+        done += 1
         a = math.sqrt(signal)
         w = expit(ook_llr(z, signal, noise) + math.log(fraction / (1.0 - fraction)))
         kappa = 2.0 * a * root / noise
         ratio = i1e(kappa) / i0e(kappa)
         weight = float(w.sum())
-        fraction = min(max(weight / n, 1e-6), 1.0 - 1e-6)
+        if on_fraction is None:
+            fraction = min(max(weight / n, 1e-6), 1.0 - 1e-6)
         a_new = float(np.dot(w, root * ratio)) / weight if weight > 0 else 0.0
         expected = z - w * (2.0 * a_new * root * ratio - a_new * a_new)
         noise_new = max(float(expected.mean()), 1e-300)

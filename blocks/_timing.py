@@ -216,7 +216,7 @@ class ToneMetricState:
     Attributes
     ----------
     tails : numpy.ndarray
-        complex128 ``(2, length)``: the last ``length`` tone-mixed samples of each tone.
+        complex64 ``(2, length - 1)``: the last ``length - 1`` tone-mixed samples of each tone.
     phases : tuple of float
         Oscillator phases (cycles) of the two tones.
     """
@@ -253,8 +253,9 @@ def tone_metric(x: np.ndarray, deviation_cycles: float, length: int,
     -----
     Each correlator is the noncoherent matched filter of one tone [1]_ (section 4.5); over a
     symbol-aligned window the winning tone's energy is largest, so ``z`` peaks at the last
-    sample of each symbol and dips where the window straddles a change of tone. The sliding
-    sums are differences of a running sum restarted every chunk.
+    sample of each symbol and dips where the window straddles a change of tone. Both tones are
+    mixed in one ``(2, n)`` product and each sliding sum is ``length`` shifted additions, so
+    no running sum accumulates rounding over the chunk.
 
     References
     ----------
@@ -263,17 +264,18 @@ def tone_metric(x: np.ndarray, deviation_cycles: float, length: int,
     if length < 1:
         raise ValueError(f"length must be >= 1 (got {length})")
     if state is None:
-        state = ToneMetricState(np.zeros((2, length), dtype=np.complex128), (0.0, 0.0))
+        state = ToneMetricState(np.zeros((2, length - 1), dtype=np.complex64), (0.0, 0.0))
     n = x.shape[0]
-    z = np.zeros(n)
-    tails = np.empty((2, length), dtype=np.complex128)
+    ext = np.empty((2, length - 1 + n), dtype=np.complex64)
+    ext[:, :length - 1] = state.tails
     phases = []
     for i, f in enumerate((-deviation_cycles, deviation_cycles)):
         osc, ph = oscillator(n, -f, state.phases[i], tone_row(-f))
+        np.multiply(osc, x, out=ext[i, length - 1:])
         phases.append(ph)
-        ext = np.concatenate((state.tails[i], (osc * x).astype(np.complex128)))
-        run = np.concatenate(([0j], np.cumsum(ext)))
-        corr = run[length + 1:] - run[1: n + 1]
-        z += corr.real ** 2 + corr.imag ** 2
-        tails[i] = ext[ext.shape[0] - length:]
-    return z, ToneMetricState(tails, (phases[0], phases[1]))
+    corr = ext[:, length - 1:].copy()
+    for k in range(length - 1):
+        corr += ext[:, k:k + n]
+    power = corr.real.astype(np.float64) ** 2 + corr.imag.astype(np.float64) ** 2
+    z = power[0] + power[1]
+    return z, ToneMetricState(ext[:, n:].copy(), (phases[0], phases[1]))

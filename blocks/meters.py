@@ -2,7 +2,11 @@
 
 from __future__ import annotations
 
+import itertools
+from collections import deque
 from typing import Any
+
+import numpy as np
 
 from blocks._bert import (
     FRAMINGS,
@@ -41,6 +45,10 @@ class BitErrorMeter(Block):
               doc="error fraction in a window (or packet) above which sync is lost"),
         Param("confidence", float, 0.95, low=0, high=1, low_open=True, high_open=True,
               doc="two-sided level of the Clopper-Pearson interval ber_low .. ber_high"),
+        Param("history_interval_bits", int, 10_000, unit="bits", low=64, high=1 << 30,
+              doc="input bits per point of the BER history (views)"),
+        Param("history_points", int, 600, low=2, high=100_000,
+              doc="points the BER history keeps (the oldest are dropped)"),
     )
 
     def setup(self, inputs: dict[str, StreamSpec]) -> dict[str, StreamSpec]:
@@ -49,13 +57,32 @@ class BitErrorMeter(Block):
                                   window_bits=p.window_bits, loss_threshold=p.loss_threshold,
                                   framing=p.framing)
         self._state = None
+        self._rate = inputs["in"].rate
+        self._history: deque[tuple[float, ...]] = deque(maxlen=p.history_points)
+        self._last_point = (0, 0)
+        self._point_before = (0, 0)
         return {}
 
     def process(self, chunk: Chunk) -> None:
-        gaps = [a.index for a in chunk.annotations if a.label == "gap"]
+        """Count the chunk, cut where the input reaches a multiple of the history interval.
+
+        The cuts are at absolute bit indices, so the history does not depend on chunking.
+        """
+        step = self.p.history_interval_bits
+        edges = [chunk.start, *range((chunk.start // step + 1) * step, chunk.stop, step),
+                 chunk.stop]
+        for a, b in itertools.pairwise(edges):
+            last = b == chunk.stop
+            notes = tuple(n for n in chunk.annotations if a <= n.index and (last or n.index < b))
+            self._count(chunk.samples[a - chunk.start:b - chunk.start], a, notes)
+            if b % step == 0:
+                self._add_point(b)
+
+    def _count(self, bits: np.ndarray, start: int, annotations: tuple) -> None:
+        gaps = [a.index for a in annotations if a.label == "gap"]
         packets = []
         if self._config.framing == "packets":
-            for note in chunk.annotations:
+            for note in annotations:
                 if note.label != "packet":
                     continue
                 length = note.data.get("payload_bits") if isinstance(note.data, dict) else None
@@ -63,11 +90,46 @@ class BitErrorMeter(Block):
                     raise ValueError(f"packet annotation at index {note.index} needs an integer "
                                      f"payload_bits >= 0 (got {length!r})")
                 packets.append((note.index, length))
-        self._state = bert_update(chunk.samples, chunk.start, self._config, self._state,
+        self._state = bert_update(bits, start, self._config, self._state,
                                   packets=packets, gaps=gaps)
+
+    def _add_point(self, position: int) -> None:
+        """Record the bits and errors counted since the previous point, with their interval."""
+        s = self._state or BertState()
+        bits, errors = s.bits - self._last_point[0], s.errors - self._last_point[1]
+        self._point_before, self._last_point = self._last_point, (s.bits, s.errors)
+        low, high = clopper_pearson(errors, bits, self.p.confidence)
+        self._history.append((position / self._rate, s.bits, s.errors,
+                              errors / bits if bits else 0.0, low, high))
 
     def finish(self) -> None:
         self._state = bert_finish(self._config, self._state)
+        s = self._state or BertState()
+        if (s.bits, s.errors) == self._last_point and not (
+                s.position % self.p.history_interval_bits):
+            return
+        if self._history and self._history[-1][0] == s.position / self._rate:
+            # the last point is at the end of the stream: it takes the final judgement
+            self._history.pop()
+            self._last_point = self._point_before
+        self._add_point(s.position)
+
+    def views(self) -> dict[str, Any]:
+        """The BER history: one point per ``history_interval_bits`` input bits.
+
+        ``history`` holds equal-length lists: ``t_s`` (stream time of the point, input bits
+        over bit rate), ``bits`` and ``errors`` (counted so far), and ``ber``, ``ber_low``,
+        ``ber_high``: the ratio over the bits counted since the previous point and its
+        Clopper-Pearson interval (0 and 0 .. 1 where none were counted).
+        """
+        columns = ("t_s", "bits", "errors", "ber", "ber_low", "ber_high")
+        rows = list(zip(*self._history, strict=True)) or [()] * len(columns)
+        history: dict[str, Any] = {name: list(col) for name, col in zip(columns, rows,
+                                                                         strict=True)}
+        for name in ("bits", "errors"):
+            history[name] = [int(v) for v in history[name]]
+        history["interval_bits"] = self.p.history_interval_bits
+        return {"history": history}
 
     def readings(self) -> dict[str, Any]:
         """``bits``, ``errors``, ``ber`` with its interval, sync and gap counters.

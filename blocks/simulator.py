@@ -3,7 +3,10 @@
 ``sim`` keys a test pattern (a PRBS, or packets with PRBS9 payloads) onto OOK, 2-FSK / GFSK,
 DBPSK or pi/4-DQPSK at any sample rate, and passes it through the simulated channel
 (``blocks/_channel.py``): Rayleigh fading, carrier offset, random start phase, phase noise and
-white Gaussian noise set by Eb/N0. ``channel`` applies the same channel to any complex stream.
+white Gaussian noise set by Eb/N0. ``channel`` applies the same channel to any complex stream,
+plus a transmitter sample-clock error (``blocks/_resample.py``); the sim models that error
+by keying at the offset symbol rate instead. Either way a positive ``clock_ppm`` makes the
+symbols arrive faster: fewer samples per symbol at the nominal sample rate.
 
 Nothing here transmits: the signal exists only as samples. Anyone who feeds such samples to a
 radio transmitter needs the licence, or the licence-exempt band rules, of the place where it
@@ -30,6 +33,14 @@ from blocks._modulate import (
 )
 from blocks._packets import DEFAULT_SYNC_WORD, packet_bits
 from blocks._prbs import PRBS_NAMES, prbs_sequence
+from blocks._resample import (
+    MAX_CLOCK_PPM,
+    ResamplerState,
+    design_resampler,
+    resample,
+    resample_tail,
+    resampled_index,
+)
 from stream.block import Block, Port, Source, StreamSpec
 from stream.chunk import Annotation, Chunk
 from stream.errors import ParamError
@@ -309,7 +320,15 @@ class SimSource(Source):
 
 
 class ChannelBlock(Block):
-    """Simulated channel on a complex stream: Eb/N0 noise, carrier offset, phase noise, fading."""
+    """Simulated channel on a complex stream: clock error, CFO, phase noise, fading, noise.
+
+    The order follows the signal: the clock error belongs to the transmitter, so the input is
+    resampled first (output sample ``n`` is the input at ``n (1 + clock_ppm 1e-6)`` input
+    samples, at the unchanged nominal rate); the fading, carrier offset, phase noise and
+    noise are then applied on the receiver's sample grid. Annotations move to the first
+    output sample at or after their input sample. With a clock error the last few outputs
+    wait for the next input chunk (or the end of the stream).
+    """
 
     kind = "channel"
     inputs = (Port("in", "complex64", "complex baseband"),)
@@ -319,6 +338,9 @@ class ChannelBlock(Block):
               doc="information bit rate of the input (needed when ebn0_db is finite)"),
         Param("signal_power", float, 1.0, low=0, low_open=True,
               doc="mean |x|^2 of the input while transmitting (the sim's is 1)"),
+        Param("clock_ppm", float, 0.0, unit="ppm", low=-MAX_CLOCK_PPM, high=MAX_CLOCK_PPM,
+              low_open=True, high_open=True,
+              doc="transmitter sample clock error: the input replayed (1 + ppm / 1e6) x fast"),
         *_CHANNEL_PARAMS,
     )
 
@@ -332,13 +354,34 @@ class ChannelBlock(Block):
             bit_rate = 1.0
         self._channel = _design_channel(self.p, rate, self.p.signal_power, bit_rate)
         self._state: ChannelState | None = None
+        self._resampler = design_resampler(self.p.clock_ppm) if self.p.clock_ppm else None
+        self._clock_state: ResamplerState | None = None
+        self._notes: list[Annotation] = []
         return super().setup(inputs)
 
+    def _emit(self, x: np.ndarray, last: bool = False) -> None:
+        """Pass resampled samples through the rest of the channel and emit them."""
+        y, self._state = apply_channel(x, self._channel, self._state)
+        stop = self.position() + y.shape[0]
+        notes = [a for a in self._notes if last or a.index < stop]
+        self._notes = [a for a in self._notes if not (last or a.index < stop)]
+        self.emit(y, annotations=notes)
+
     def process(self, chunk: Chunk) -> None:
-        y, self._state = apply_channel(chunk.samples, self._channel, self._state)
-        self.emit(y, annotations=chunk.annotations)
+        if self._resampler is None:
+            self._notes.extend(chunk.annotations)
+            self._emit(chunk.samples)
+            return
+        self._notes.extend(a.moved(resampled_index(self._resampler, a.index))
+                           for a in chunk.annotations)
+        x, self._clock_state = resample(chunk.samples, self._resampler, self._clock_state)
+        self._emit(x)
+
+    def finish(self) -> None:
+        if self._resampler is not None:
+            self._emit(resample_tail(self._resampler, self._clock_state), last=True)
 
     def readings(self) -> dict[str, float | int | str]:
         if not hasattr(self, "_channel"):
             return {}
-        return _channel_readings(self.p, self._channel)
+        return {**_channel_readings(self.p, self._channel), "clock_ppm": self.p.clock_ppm}

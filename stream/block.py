@@ -284,5 +284,15 @@ class Source(Block):
         """Emit the next chunk; return False once the stream has ended."""
         raise NotImplementedError
 
+    def skip(self, samples: int, port: str | None = None) -> None:
+        """Advance ``port``'s position past ``samples`` that were lost (the stream has a hole).
+
+        The next chunk's ``start`` jumps by ``samples``, so every consumer sees the gap.
+        """
+        if samples < 0:
+            raise ValueError(f"samples must be >= 0 (got {samples})")
+        name = port if port is not None else self.outputs[0].name
+        self._positions[name] += int(samples)
+
     def process(self, chunk: Chunk) -> None:  # pragma: no cover - sources have no inputs
         raise TypeError(f"source {self.id!r} has no inputs")

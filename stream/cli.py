@@ -20,6 +20,10 @@ COMMANDS = {
     "blocks": "kinds",
     "sweep": "sweep",
     "budget": "budget",
+    "plot": "plot",
+    "keygen": "keygen",
+    "radios": "radios",
+    "doctor": "doctor",
 }
 
 

@@ -18,14 +18,19 @@ field      type   meaning
 =========  =====  =========================================================================
 magic      4s     :data:`MAGIC`, marks a phasefree frame
 version    u8     :data:`VERSION` (1)
-kind       u8     :class:`MessageKind`: DATA, END (end of stream) or HEARTBEAT
-dtype      u8     :class:`DtypeCode` of the samples (0 for END and HEARTBEAT)
+kind       u8     :class:`MessageKind`: DATA, END (end of stream), HEARTBEAT or SESSION
+dtype      u8     :class:`DtypeCode` of the samples (0 for END, HEARTBEAT and SESSION)
 flags      u8     bit 0: annotations part present; the other bits are reserved and must be 0
 seq        u64    sequence number on the link, so a gap is visible
-start      i64    DATA: index of the first sample; END: index one past the last sample
+start      i64    DATA: index of the first sample; END: index one past the last sample;
+                  SESSION: the sender's session id, in [1, 2**63)
 rate       f64    DATA: sample rate in samples/s, finite and > 0; 0.0 otherwise
 count      u64    DATA: number of samples in part 1; 0 otherwise
 =========  =====  =========================================================================
+
+A SESSION message opens each run of a sender on a link between processes: its ``start`` is a
+random id drawn when the sender starts, so a receiver can tell a restarted sender (whose
+sequence numbers and sample indices begin again at 0) from a gap in a running one.
 
 Nothing read from a socket is unpickled or evaluated: the header is unpacked with
 :mod:`struct`, the samples are viewed with :func:`numpy.frombuffer` and the annotations are
@@ -74,6 +79,7 @@ __all__ = [
     "encode",
     "encode_end",
     "encode_heartbeat",
+    "encode_session",
 ]
 
 #: Marks a phasefree wire frame ("phasefree wire frame"); the project's own choice.
@@ -105,6 +111,7 @@ class MessageKind(enum.IntEnum):
     DATA = 1
     END = 2
     HEARTBEAT = 3
+    SESSION = 4
 
 
 class DtypeCode(enum.IntEnum):
@@ -161,12 +168,12 @@ class Message:
     Parameters
     ----------
     kind : MessageKind
-        DATA, END or HEARTBEAT.
+        DATA, END, HEARTBEAT or SESSION.
     seq : int
         Sequence number on the link.
     start : int
         DATA: index of the first sample (equal to ``chunk.start``); END: index one past the
-        last sample of the stream; HEARTBEAT: 0.
+        last sample of the stream; HEARTBEAT: 0; SESSION: the sender's session id.
     chunk : Chunk or None
         The chunk for DATA (``port`` left ``None``), ``None`` otherwise.
     """
@@ -271,6 +278,26 @@ def encode_heartbeat(seq: int) -> list[bytes]:
         The single header part.
     """
     return [_pack(MessageKind.HEARTBEAT, seq, 0)]
+
+
+def encode_session(seq: int, session: int) -> list[bytes]:
+    """Build a SESSION message, which opens a sender's run on a link between processes.
+
+    Parameters
+    ----------
+    seq : int
+        Sequence number, ``0 <= seq < 2**64`` (0 for a sender that has just started).
+    session : int
+        The sender's session id, ``1 <= session < 2**63``, drawn at random when it starts.
+
+    Returns
+    -------
+    list of bytes
+        The single header part.
+    """
+    if not 1 <= session <= _MAX_START:
+        raise ValueError(f"session must be in [1, 2**63) (got {session})")
+    return [_pack(MessageKind.SESSION, seq, session)]
 
 
 def _check_start(start: int) -> None:
@@ -414,7 +441,7 @@ def _decode_data(views: list[memoryview], code: int, flags: int, start: int, rat
 
 def _check_control(views: list[memoryview], kind: MessageKind, code: int, flags: int,
                    start: int, rate: float, count: int) -> None:
-    """Check an END or HEARTBEAT message: a lone header whose data fields are all zero."""
+    """Check an END, HEARTBEAT or SESSION message: a lone header with zero data fields."""
     if len(views) != 1:
         raise FrameError("parts", f"a {kind.name} message has 1 part (got {len(views)})")
     if code != 0:
@@ -427,6 +454,8 @@ def _check_control(views: list[memoryview], kind: MessageKind, code: int, flags:
         raise FrameError("rate", f"a {kind.name} message has rate 0.0 (got {rate})")
     if kind is MessageKind.HEARTBEAT and start != 0:
         raise FrameError("start", f"a HEARTBEAT message has start 0 (got {start})")
+    if kind is MessageKind.SESSION and start == 0:
+        raise FrameError("start", "a SESSION message has a session id >= 1 (got 0)")
 
 
 def _decode_annotations(view: memoryview) -> tuple[Annotation, ...]:

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from collections.abc import Iterator
 from dataclasses import dataclass, field
+from typing import Any
 
 from stream.block import Block, Source, StreamSpec
 from stream.errors import ParamError, PipelineError
@@ -64,6 +65,8 @@ class Pipeline:
         self.edges: list[Edge] = []
         self._keys: dict[str, str] = {}
         self.validated = False
+        #: The parts and crossings (``stream.parts.Layout``) when the file divides the pipeline.
+        self.layout: Any = None
 
     def add(self, block: Block, key: str | None = None) -> Block:
         """Add a block under its id; ``key`` locates it in the pipeline file."""

@@ -21,6 +21,7 @@ Sources of each figure (Linux):
 
 from __future__ import annotations
 
+import contextlib
 import os
 import shutil
 import subprocess
@@ -139,10 +140,8 @@ class HostProbe:
         cpus = os.cpu_count()
         if cpus:
             out["cpus"] = cpus
-        try:
+        with contextlib.suppress(OSError):  # no load averages on this system
             out["load_1m"], out["load_5m"], out["load_15m"] = os.getloadavg()
-        except OSError:
-            pass
         busy = self._busy()
         if busy is not None:
             out["cpu_busy"] = round(busy, 4)

@@ -109,6 +109,24 @@ class Outlet:
         self.counters.sent += 1
         return True
 
+    def offer(self, chunk: Chunk) -> bool:
+        """Send one chunk if the link has room now, without waiting.
+
+        Returns
+        -------
+        bool
+            True if sent; False if the link is full (nothing was sent, no number used up).
+        """
+        parts = frame.encode(chunk, self.seq)
+        try:
+            self.sock.send_multipart(parts, flags=zmq.NOBLOCK, copy=False)
+        except zmq.Again:
+            return False
+        self.seq += 1
+        self.position = chunk.stop
+        self.counters.sent += 1
+        return True
+
     def end(self, timeout_s: float | None = None) -> None:
         """Send end of stream, waiting for room on links and taps alike.
 

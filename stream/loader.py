@@ -14,6 +14,37 @@ Layout (see DESIGN.md)::
 
 In a chain ``a -> b.p -> c`` a port written on a middle block names the output that leaves it;
 the chain enters the block on its only input. Name an input port on the last block of a chain.
+
+Running in parts (several processes or hosts)
+---------------------------------------------
+``[parts]`` names which blocks run together in one process; every link that joins two parts
+gets a ``[crossings."SRC -> DST"]`` table (the link as written in ``links``, ports optional)
+saying how it travels::
+
+    [parts]
+    board = ["src", "dec"]
+    host = ["cfo", "timing", "det", "ber"]
+
+    [crossings."dec -> cfo"]
+    address = "tcp://127.0.0.1:5571"      # or "ipc://PATH"
+    binds = "receiver"                    # which end binds (default); or "sender"
+    listener_public = "keys/host.key"     # the binding end's public key, for the connecting end
+    listener_secret = "keys/host.key_secret"
+    dialer_secret = "keys/board.key_secret"
+    admit = ["keys/board.key"]            # connecting ends the binding end accepts
+
+``phasefree run FILE --part board`` runs the board's blocks; with no ``--part`` a file runs the
+parts it declares itself (all of them in one process, crossings as in-process links, when the
+file declares every part). The whole graph is validated first, so dtype and rate are checked
+across each crossing. A TCP crossing must stay on the loopback interface unless it says
+``allow_remote = true``, and is encrypted and authenticated with CURVE unless it says
+``curve = false`` (:mod:`stream.parts` has the rules). Key file paths are relative to the
+working folder.
+
+``include = ["other.toml"]`` in ``[pipeline]`` (paths relative to the including file) adds the
+blocks, links, parts and crossings of other files: a receiver split over two machines can be
+two files, one per part, each including the other, so whichever is run sees the whole graph
+but runs only its own part. Each file's blocks take the defaults of their own ``[pipeline]``.
 """
 
 from __future__ import annotations
@@ -28,6 +59,7 @@ from stream import registry
 from stream.errors import ParamError, PipelineError
 from stream.graph import Pipeline, parse_endpoint
 from stream.params import Param
+from stream.parts import check_layout, parse_layout
 
 __all__ = ["PIPELINE_KEYS", "load_pipeline", "parse_override", "pipeline_from_dict"]
 
@@ -39,7 +71,10 @@ PIPELINE_KEYS = {
     "symbol_rate": "default symbol_rate (symbols/s) of blocks that take one",
     "links": "list of chains 'a -> b -> c' ('~>' makes a lossy tap)",
     "queue_depth": "chunks a link holds before it applies backpressure",
+    "include": "other pipeline files whose blocks, links, parts and crossings join this one",
 }
+#: Top-level tables of a pipeline file.
+TABLES = ("pipeline", "blocks", "parts", "crossings")
 _QUEUE_DEPTH = Param("queue_depth", int, 8, low=1, high=1 << 16)
 #: Keys of ``[pipeline]`` handed down to blocks that declare a parameter of the same name.
 INHERITED = ("sample_rate", "symbol_rate")
@@ -87,30 +122,56 @@ def load_pipeline(path: str | Path, overrides: Sequence[str] = ()) -> Pipeline:
         ``str(err)`` reads ``FILE: key.path: message``.
     """
     name = str(path)
+    docs: list[dict[str, Any]] = []
+    _read_with_includes(Path(path), docs, set())
     try:
-        text = Path(path).read_text(encoding="utf-8")
+        return _assemble(docs, overrides)
+    except PipelineError as err:
+        raise err.in_file(name) from None
+
+
+def _read_doc(path: Path) -> dict[str, Any]:
+    name = str(path)
+    try:
+        text = path.read_text(encoding="utf-8")
     except FileNotFoundError:
         raise PipelineError("", "no such pipeline file", name) from None
     except (OSError, UnicodeDecodeError) as err:
         raise PipelineError("", f"cannot read: {err}", name) from None
     try:
-        doc = tomllib.loads(text)
+        return tomllib.loads(text)
     except ValueError as err:  # TOMLDecodeError, or an integer beyond Python's conversion limit
         raise PipelineError("", f"not valid TOML: {err}", name) from None
-    try:
-        return pipeline_from_dict(doc, overrides)
-    except PipelineError as err:
-        raise err.in_file(name) from None
 
 
-def _apply_overrides(doc: dict[str, Any], overrides: Sequence[str]) -> None:
-    blocks = doc.get("blocks", {})
+def _read_with_includes(path: Path, docs: list[dict[str, Any]], seen: set[Path]) -> None:
+    """Append the file's table and those it includes (each file once, so files may include
+    each other)."""
+    seen.add(path.resolve())
+    doc = _read_doc(path)
+    docs.append(doc)
+    head = doc.get("pipeline", {})
+    include = head.get("include", []) if isinstance(head, dict) else []
+    if not isinstance(include, list) or not all(isinstance(i, str) for i in include):
+        raise PipelineError("pipeline.include", "must be a list of pipeline file paths",
+                            str(path))
+    for other in include:
+        target = path.parent / other
+        if target.resolve() not in seen:
+            _read_with_includes(target, docs, seen)
+
+
+def _apply_overrides(docs: list[dict[str, Any]], overrides: Sequence[str]) -> None:
+    blocks: dict[str, Any] = {}
+    for doc in reversed(docs):  # a block defined twice is reported later; the first file wins
+        if isinstance(doc.get("blocks"), dict):
+            blocks.update(doc["blocks"])
     for text in overrides:
         block_id, param, value = parse_override(text)
         if block_id == "pipeline":
-            table = doc.setdefault("pipeline", {})
-        elif not isinstance(blocks, dict) or block_id not in blocks:
-            known = ", ".join(blocks) if isinstance(blocks, dict) else "none"
+            table = docs[0].setdefault("pipeline", {})
+        elif block_id not in blocks:
+            known = ", ".join(blocks) or "none"
             raise PipelineError(f"--set {block_id}.{param}",
                                 f"unknown block {block_id!r} (blocks: {known})")
         else:
@@ -123,14 +184,22 @@ def _apply_overrides(doc: dict[str, Any], overrides: Sequence[str]) -> None:
 
 def pipeline_from_dict(doc: dict[str, Any], overrides: Sequence[str] = ()) -> Pipeline:
     """Build and validate a pipeline from an already-parsed pipeline file (see module doc)."""
+    return _assemble([doc], overrides)
+
+
+def _copy(doc: dict[str, Any]) -> dict[str, Any]:
     doc = {k: (dict(v) if isinstance(v, dict) else v) for k, v in doc.items()}
     if isinstance(doc.get("blocks"), dict):
         doc["blocks"] = {k: (dict(v) if isinstance(v, dict) else v)
                          for k, v in doc["blocks"].items()}
-    _apply_overrides(doc, overrides)
+    return doc
+
+
+def _head(doc: dict[str, Any]) -> dict[str, Any]:
     for key in doc:
-        if key not in ("pipeline", "blocks"):
-            raise PipelineError(key, "unknown table (expected [pipeline] and [blocks.ID])")
+        if key not in TABLES:
+            raise PipelineError(key, "unknown table (expected [pipeline], [blocks.ID], "
+                                "[parts] and [crossings])")
     head = doc.get("pipeline", {})
     if not isinstance(head, dict):
         raise PipelineError("pipeline", "must be a table")
@@ -138,24 +207,67 @@ def pipeline_from_dict(doc: dict[str, Any], overrides: Sequence[str] = ()) -> Pi
         if key not in PIPELINE_KEYS:
             raise PipelineError(f"pipeline.{key}",
                                 f"unknown key (known: {', '.join(PIPELINE_KEYS)})")
+    return head
+
+
+def _assemble(docs: list[dict[str, Any]], overrides: Sequence[str]) -> Pipeline:
+    """Build one validated pipeline from a file (``docs[0]``) and the files it includes."""
+    docs = [_copy(d) for d in docs]
+    _apply_overrides(docs, overrides)
+    heads = [_head(d) for d in docs]
+    head = heads[0]
     try:
         depth = _QUEUE_DEPTH.check(head.get("queue_depth", _QUEUE_DEPTH.default))
     except ParamError as err:
         raise PipelineError(f"pipeline.{err.name}", err.message) from None
     pipe = Pipeline(str(head.get("name", "pipeline")), queue_depth=depth)
-    inherited = _inherited(head)
-    blocks = doc.get("blocks")
-    if not isinstance(blocks, dict) or not blocks:
-        raise PipelineError("blocks", "no blocks defined (add tables [blocks.ID] with a kind)")
-    for block_id, table in blocks.items():
-        pipe.add(_make_block(block_id, table, inherited))
-    links = head.get("links")
-    if not isinstance(links, list) or not links:
+    for doc, own_head in zip(docs, heads, strict=True):
+        inherited = _inherited(own_head)
+        blocks = doc.get("blocks")
+        if not isinstance(blocks, dict) or not blocks:
+            raise PipelineError("blocks",
+                                "no blocks defined (add tables [blocks.ID] with a kind)")
+        for block_id, table in blocks.items():
+            pipe.add(_make_block(block_id, table, inherited))
+    chains = []
+    for own_head in heads:
+        links = own_head.get("links", [] if len(docs) > 1 else None)
+        if not isinstance(links, list) or (len(docs) == 1 and not links):
+            raise PipelineError("pipeline.links", "must be a non-empty list of 'a -> b' chains")
+        chains.extend(links)
+    if not chains:
         raise PipelineError("pipeline.links", "must be a non-empty list of 'a -> b' chains")
-    for i, chain in enumerate(links):
+    for i, chain in enumerate(chains):
         _add_chain(pipe, chain, f"pipeline.links[{i}]")
     pipe.validate()
+    _lay_out(pipe, docs)
     return pipe
+
+
+def _merged(docs: list[dict[str, Any]], table: str) -> dict[str, Any]:
+    out: dict[str, Any] = {}
+    for doc in docs:
+        part = doc.get(table, {})
+        if not isinstance(part, dict):
+            raise PipelineError(table, "must be a table")
+        for key, value in part.items():
+            if key in out:
+                raise PipelineError(f"{table}.{key}", "is defined twice")
+            out[key] = value
+    return out
+
+
+def _lay_out(pipe: Pipeline, docs: list[dict[str, Any]]) -> None:
+    """Read ``[parts]`` and ``[crossings]`` over all files and check them against the graph."""
+    parts, crossings = _merged(docs, "parts"), _merged(docs, "crossings")
+    if not parts:
+        if crossings:
+            raise PipelineError("crossings", "crossings join parts: add a [parts] table")
+        return
+    own = docs[0].get("parts", {})
+    layout = parse_layout(parts, crossings, own if own else parts)
+    check_layout(pipe, layout)
+    pipe.layout = layout
 
 
 def _inherited(head: Mapping[str, Any]) -> dict[str, Any]:

@@ -27,7 +27,7 @@ class _Required:
 REQUIRED: Any = _Required()
 
 _TYPE_WORDS = {float: "a number", int: "an integer", str: "a string", bool: "true or false",
-               list: "a list"}
+               list: "a list", dict: "a table"}
 
 
 @dataclass(frozen=True)
@@ -39,7 +39,7 @@ class Param:
     name : str
         Key in the pipeline file.
     type : type
-        One of ``float``, ``int``, ``str``, ``bool``, ``list``.
+        One of ``float``, ``int``, ``str``, ``bool``, ``list``, ``dict`` (a TOML table).
     default : object
         Value when not given; ``REQUIRED`` if it must be given; ``None`` for "automatic"
         (the block decides, or the pipeline supplies it, e.g. ``sample_rate``).
@@ -124,6 +124,8 @@ class Param:
                     if not ok:
                         raise ParamError(
                             self.name, f"item {i} must be {_TYPE_WORDS[self.items]} {got}")
+        elif kind is dict and not isinstance(value, dict):
+            raise ParamError(self.name, f"must be a table {got}")
         if self.choices is not None and value not in self.choices:
             allowed = ", ".join(repr(c) for c in self.choices)
             raise ParamError(self.name, f"must be one of {allowed} {got}")

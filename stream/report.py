@@ -70,6 +70,47 @@ def format_summary(summary: dict[str, Any]) -> str:
     return "\n".join(lines)
 
 
+def _ber_text(value: float) -> str:
+    return "0" if value == 0 else f"{value:.2e}"
+
+
+def _measured(status: dict[str, Any], name: str) -> dict[str, Any] | None:
+    """The first block that measured reading ``name`` (a source, which never receives samples,
+    reports its settings, not measurements)."""
+    for b in status["blocks"].values():
+        if b.get("samples_in") and isinstance(b.get(name), (int, float)):
+            return b
+    return None
+
+
+def _headline(status: dict[str, Any]) -> str:
+    """BER with its interval, Eb/N0 estimate, packets and the host's load, in one line."""
+    parts = []
+    meter = _measured(status, "ber")
+    if meter is not None:
+        low, high = meter.get("ber_low"), meter.get("ber_high")
+        interval = (f" [{_ber_text(low)}, {_ber_text(high)}]"
+                    if isinstance(low, (int, float)) and isinstance(high, (int, float)) else "")
+        parts.append(f"BER {_ber_text(meter['ber'])}{interval} over {meter.get('bits', 0)} bits")
+    snr = _measured(status, "ebn0_db")
+    if snr is not None:
+        parts.append(f"Eb/N0 {snr['ebn0_db']:.1f} dB (estimate)")
+    framer = _measured(status, "packets")
+    if framer is not None:
+        crc = framer.get("crc_failures")
+        parts.append(f"packets {framer['packets']}"
+                     + (f", {crc} CRC failures" if isinstance(crc, int) else ""))
+    host = status.get("host") or {}
+    if "load_1m" in host:
+        parts.append(f"load {host['load_1m']:.2f}")
+    if host.get("temperatures_c"):
+        parts.append(f"{max(host['temperatures_c'].values()):.0f} °C")
+    if any(v for k, v in (host.get("throttle") or {}).items()
+           if k in ("under_voltage", "throttled", "frequency_capped")):
+        parts.append("board throttled")
+    return "  |  ".join(parts)
+
+
 class LiveView:
     """A block table redrawn in place on a terminal (ANSI cursor movement)."""
 
@@ -80,7 +121,11 @@ class LiveView:
     def draw(self, status: dict[str, Any]) -> None:
         """Replace the previous table with one for ``status``."""
         lines = [f"{status.get('pipeline', 'pipeline')}  {status['seconds']:.0f} s  "
-                 "(Ctrl-C stops)", *_rows(status)]
+                 "(Ctrl-C stops)"]
+        headline = _headline(status)
+        if headline:
+            lines.append(headline)
+        lines.extend(_rows(status))
         if self.height:
             self.out.write(f"\x1b[{self.height}F")
         self.out.write("".join(f"\x1b[2K{line}\n" for line in lines))

@@ -20,10 +20,12 @@ from typing import Any
 import zmq
 
 from stream.block import Block, Source
+from stream.crossing import NetworkEnds
 from stream.errors import BlockFailed, LinkClosed
 from stream.frame import MessageKind
 from stream.graph import Pipeline
 from stream.link import Inlet, LinkCounters, Outlet, open_link
+from stream.parts import PartPlan
 
 __all__ = ["Runner"]
 
@@ -44,10 +46,13 @@ class Runner:
         Chunks a link holds (per end) before the producer waits (default: the pipeline's).
     drain_s : float
         How long a stop may take to drain before the run is aborted.
+    part : PartPlan or None
+        Run only these parts of a divided pipeline (``stream.parts.plan_part``); links to the
+        other parts travel over their crossings' addresses. None runs every block.
     """
 
     def __init__(self, pipeline: Pipeline, queue_depth: int | None = None,
-                 drain_s: float = 1.5) -> None:
+                 drain_s: float = 1.5, part: PartPlan | None = None) -> None:
         if not pipeline.validated:
             pipeline.validate()
         self.pipeline = pipeline
@@ -59,6 +64,8 @@ class Runner:
         self.failure: BlockFailed | None = None
         self.failure_trace = ""
         self.links: dict[str, LinkCounters] = {}
+        self.block_ids = [b for b in pipeline.blocks if part is None or b in part.blocks]
+        self._network = NetworkEnds(part, self._fail) if part is not None else None
         self._readings: dict[str, dict[str, Any]] = {bid: {} for bid in pipeline.blocks}
         self._views: dict[str, dict[str, Any]] = {bid: {} for bid in pipeline.blocks}
         self._threads: list[threading.Thread] = []
@@ -125,23 +132,38 @@ class Runner:
             self.aborting.set()
             for t in self._threads:
                 t.join(1.0)
+            if self._network is not None:
+                self._network.close()
             ctx.destroy(linger=0)
         return self.summary()
 
     def _start(self, ctx: zmq.Context) -> None:
         run_id = next(_run_ids)
-        outlets: dict[str, list[tuple[str, Outlet]]] = {b: [] for b in self.pipeline.blocks}
-        inlets: dict[str, list[Inlet]] = {b: [] for b in self.pipeline.blocks}
+        outlets: dict[str, list[tuple[str, Outlet]]] = {b: [] for b in self.block_ids}
+        inlets: dict[str, list[Inlet]] = {b: [] for b in self.block_ids}
+        relays: list[threading.Thread] = []
         for i, edge in enumerate(self.pipeline.edges):
-            counters = LinkCounters(edge.label(), edge.tap)
-            self.links[edge.label()] = counters
+            if edge.src not in outlets and edge.dst not in inlets:
+                continue  # both ends run in another process
             address = f"inproc://phasefree-{id(self)}-{run_id}-{i}"
-            outlet, inlet = open_link(ctx, address, counters, edge.dst_port, self.aborting,
-                                      self.queue_depth)
-            outlets[edge.src].append((edge.src_port, outlet))
-            inlets[edge.dst].append(inlet)
+            if self._network is not None and self._network.crosses(edge):
+                counters, out_end, in_end, relay = self._network.open(
+                    ctx, edge, address, self.stopping, self.aborting, self.queue_depth)
+                relays.append(relay)
+            else:
+                counters = LinkCounters(edge.label(), edge.tap)
+                out_end, in_end = open_link(ctx, address, counters, edge.dst_port,
+                                            self.aborting, self.queue_depth)
+            self.links[edge.label()] = counters
+            if out_end is not None:
+                outlets[edge.src].append((edge.src_port, out_end))
+            if in_end is not None:
+                inlets[edge.dst].append(in_end)
+        self._threads.extend(relays)
         self._t0 = time.monotonic()
         for bid in self.pipeline.order():
+            if bid not in outlets:
+                continue
             block = self.pipeline.blocks[bid]
             target = self._source_loop if isinstance(block, Source) else self._block_loop
             t = threading.Thread(target=self._guard, name=f"block-{bid}",
@@ -260,7 +282,7 @@ class Runner:
             "event": "status",
             "pipeline": self.pipeline.name,
             "seconds": round(self.elapsed(), 3),
-            "blocks": {bid: self.block_status(bid) for bid in self.pipeline.blocks},
+            "blocks": {bid: self.block_status(bid) for bid in self.block_ids},
             "links": {label: vars(c.statistics()) for label, c in self.links.items()},
         }
 

@@ -34,6 +34,7 @@ from stream.frame import (
     encode,
     encode_end,
     encode_heartbeat,
+    encode_session,
 )
 
 DTYPE_CODES = {"complex64": 1, "float32": 2, "uint8": 3, "int16": 4, "int8": 5, "float64": 6}
@@ -187,6 +188,8 @@ def test_end_and_heartbeat_round_trip(seq: int, start: int) -> None:
     assert (end.kind, end.seq, end.start, end.chunk) == (MessageKind.END, seq, start, None)
     beat = decode(encode_heartbeat(seq))
     assert (beat.kind, beat.seq, beat.start, beat.chunk) == (MessageKind.HEARTBEAT, seq, 0, None)
+    session = decode(encode_session(seq, start or 1))
+    assert (session.kind, session.seq, session.start) == (MessageKind.SESSION, seq, start or 1)
 
 
 # ----------------------------------------------------------------------------------------------
@@ -259,7 +262,7 @@ def test_end_rejects_negative_start() -> None:
         ([_header(version=0), b""], "version"),
         ([_header(version=2), b""], "version"),
         ([_header(kind=0), b""], "type"),
-        ([_header(kind=4), b""], "type"),
+        ([_header(kind=5), b""], "type"),
         ([_header(kind=255), b""], "type"),
         ([_header(dtype=0), b""], "dtype"),
         ([_header(dtype=7), b""], "dtype"),
@@ -284,6 +287,8 @@ def test_end_rejects_negative_start() -> None:
         ([_header(kind=2, dtype=0, rate=1.0)], "rate"),
         ([_header(kind=2, dtype=0, rate=0.0, flags=1)], "flags"),
         ([_header(kind=3, dtype=0, rate=0.0, start=9)], "start"),
+        ([_header(kind=4, dtype=0, rate=0.0, start=0)], "start"),
+        ([_header(kind=4, dtype=2, rate=0.0, start=7)], "dtype"),
         ([], "parts"),
         ([_header()], "parts"),
         ([*_data(), b"[]"], "parts"),

@@ -195,3 +195,14 @@ def test_validate_with_nothing_declared():
 def test_validate_reports_the_bad_value_by_name():
     with pytest.raises(ParamError, match=r"^taps: must be >= 1 \(got 0\)$"):
         validate_params(DECLARED, {"path": "x", "taps": 0})
+
+
+# -- tables (dict) ----------------------------------------------------------------------------
+
+def test_dict_accepts_a_table_and_refuses_other_values():
+    # A TOML inline table ({a = 1}) arrives from tomllib as a dict (Python docs, tomllib).
+    p = Param("fallback_params", dict, None)
+    assert p.check({"modulation": "ook", "ebn0_db": 9}) == {"modulation": "ook", "ebn0_db": 9}
+    assert p.check(None) is None
+    _refuses(p, [1, 2], "must be a table (got [1, 2])")
+    _refuses(p, "modulation=ook", "must be a table (got 'modulation=ook')")

@@ -1,0 +1,727 @@
+"""Benchmark of the receive chain: every speed and memory figure of phasefree, from one run.
+
+    python tools/bench.py              # full run (a few minutes), human-readable table
+    python tools/bench.py --quick      # well under a minute
+    python tools/bench.py --json       # one JSON object on stdout
+    python tools/bench.py --tiny       # smallest sizes, for the smoke test (figures are noisy)
+
+What it measures, each figure side by side with the one it is compared to in the same run:
+
+receivers
+    every shipped loopback receiver (``configs/loopback-*.toml``) through the threaded runtime,
+    the source replaced by a replay of samples the ``sim`` block generated beforehand, at
+    chunk sizes 4k, 16k and 64k: Msamples/s of receiver input.
+references
+    the same blocks, configured the same way, called in order in one thread with no runtime
+    (64k chunks): the runtime's overhead is ``receivers[..]["65536"] / references[..]``.
+kernels
+    each stage alone on its real input (captured from a reference run): Msamples/s of the
+    stage's own input (bits/s for the framer and the BER meter).
+links
+    a link hop (``stream.link``, with the wire frame) over inproc, ipc and tcp against raw
+    pyzmq PUSH/PULL sending the same frames, both ends as a thread pair: ratio to raw.
+processes
+    a CPU-bound chain (the DBPSK receiver) split after its matched filter into two processes
+    joined by raw pyzmq over ipc with the wire frame, against the same work in one process:
+    speedup.
+peak_rss_mb, rss_growth
+    peak resident memory of a full receiver run (source included) of 3 units of length, and
+    its ratio to the run of 1 unit: bounded memory gives about 1.
+latency_ms
+    median time from a chunk leaving a real-time paced source to its samples reaching a sink
+    behind a decimator and a matched filter.
+
+Speed targets are judged here, never in timed tests. The machine may be shared: compare the
+ratios, which are measured side by side, rather than absolute figures between runs.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import multiprocessing as mp
+import os
+import resource
+import socket
+import sys
+import tempfile
+import threading
+import time
+import tomllib
+from collections.abc import Callable
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, ClassVar
+
+ROOT = Path(__file__).resolve().parent.parent
+if str(ROOT) not in sys.path:
+    sys.path.insert(0, str(ROOT))
+
+import numpy as np  # noqa: E402
+import zmq  # noqa: E402
+
+import blocks  # noqa: E402, F401  (registers the block kinds)
+from blocks._fir import antialias_taps, fir_decimate  # noqa: E402
+from blocks._mixer import frequency_shift, tone_row  # noqa: E402
+from blocks._packets import packet_bits  # noqa: E402
+from blocks.conditioning import Decimate, MatchedFilter  # noqa: E402
+from blocks.framing import Framer  # noqa: E402
+from stream import frame  # noqa: E402
+from stream.block import Block, Port, Source, StreamSpec  # noqa: E402
+from stream.chunk import Chunk  # noqa: E402
+from stream.graph import Pipeline  # noqa: E402
+from stream.link import LinkCounters, open_link  # noqa: E402
+from stream.loader import pipeline_from_dict  # noqa: E402
+from stream.params import Param  # noqa: E402
+from stream.runner import Runner  # noqa: E402
+
+SCHEMES = ("ook", "2fsk", "dbpsk", "dqpsk")
+CHUNKS = (4096, 16384, 65536)
+REFERENCE_CHUNK = 65536
+#: Input rate of the 8-bit SDR the targets are set against (samples/s).
+SDR_RATE = 2.4e6
+
+
+@dataclass(frozen=True)
+class Sizes:
+    """How much work each section does (samples, messages, repeats)."""
+
+    samples: int
+    repeats: int
+    link_messages: int
+    memory_symbols: int
+    latency_s: float
+
+
+SIZES = {
+    "full": Sizes(samples=3_000_000, repeats=3, link_messages=1500, memory_symbols=60_000,
+                  latency_s=3.0),
+    "quick": Sizes(samples=800_000, repeats=1, link_messages=300, memory_symbols=15_000,
+                   latency_s=1.0),
+    "tiny": Sizes(samples=120_000, repeats=1, link_messages=20, memory_symbols=2_000,
+                  latency_s=0.2),
+}
+
+
+# ----------------------------------------------------------------------------------------------
+# bench-only blocks: a replay source and a timing probe
+
+
+#: Sample arrays the replay source plays, by name (filled before a pipeline is built).
+TAPES: dict[str, np.ndarray] = {}
+#: Emit and arrival times recorded by the replay source and the probe, by tape name.
+STAMPS: dict[str, dict[str, list[tuple[int, float]]]] = {}
+
+
+class ReplaySource(Source):
+    """Play an in-memory sample array (bench only)."""
+
+    kind = "bench-replay"
+    outputs = (Port("out", "complex64", "the tape's samples"),)
+    params: ClassVar[tuple[Param, ...]] = (
+        *Source.common_params,
+        Param("tape", str, "", doc="name of the array in TAPES"),
+    )
+
+    def setup(self, inputs):
+        self._tape = TAPES[self.p.tape]
+        self._at = 0
+        self._stamps = STAMPS.setdefault(self.p.tape, {"emit": [], "seen": []})["emit"]
+        return super().setup(inputs)
+
+    def produce(self) -> bool:
+        n = self.p.chunk_size
+        piece = self._tape[self._at:self._at + n]
+        self._at += piece.shape[0]
+        self._stamps.append((self._at, time.perf_counter()))
+        self.emit(piece)
+        return self._at < self._tape.shape[0]
+
+
+class Probe(Block):
+    """Record when samples arrive (bench only)."""
+
+    kind = "bench-probe"
+    inputs = (Port("in", "any", "anything"),)
+    params = (Param("tape", str, "", doc="name of the tape whose stamps to add to"),)
+
+    def setup(self, inputs):
+        self._seen = STAMPS.setdefault(self.p.tape, {"emit": [], "seen": []})["seen"]
+        return {}
+
+    def process(self, chunk: Chunk) -> None:
+        self._seen.append((chunk.stop, time.perf_counter()))
+
+
+# ----------------------------------------------------------------------------------------------
+# pipelines
+
+
+def config_doc(scheme: str) -> dict[str, Any]:
+    """The parsed shipped loopback pipeline file of a scheme."""
+    with open(ROOT / "configs" / f"loopback-{scheme}.toml", "rb") as f:
+        return tomllib.load(f)
+
+
+def replay_pipeline(scheme: str, tape: str, chunk: int) -> Pipeline:
+    """The scheme's receiver with its source replaced by a replay of ``TAPES[tape]``."""
+    doc = config_doc(scheme)
+    doc["blocks"]["src"] = {"kind": "bench-replay", "tape": tape, "chunk_size": chunk}
+    return pipeline_from_dict(doc)
+
+
+def generate_tape(scheme: str, samples: int) -> np.ndarray:
+    """Run the scheme's ``sim`` source into memory (once, outside every timing)."""
+    doc = config_doc(scheme)
+    doc["blocks"]["src"]["chunk_size"] = REFERENCE_CHUNK
+    pipe = pipeline_from_dict(doc)
+    src = pipe.blocks["src"]
+    parts, got = [], 0
+    while got < samples:
+        src.produce()
+        for _, chunk in src.take_output():
+            parts.append(chunk.samples)
+            got += len(chunk)
+    tape = np.concatenate(parts)[:samples]
+    tape.setflags(write=False)
+    return tape
+
+
+class Inline:
+    """Run a validated pipeline's non-source blocks in one thread, no runtime: the reference.
+
+    Each chunk goes through ``Block.deliver`` (``process`` plus the block's own counters) and
+    on to the consumers of each output, depth first; ``finish`` runs in data-flow order.
+    """
+
+    def __init__(self, pipe: Pipeline, capture: bool = False) -> None:
+        self.pipe = pipe
+        self.order = [bid for bid in pipe.order() if bid not in pipe.sources()]
+        self.routes: dict[tuple[str, str], list[tuple[str, str]]] = {}
+        for e in pipe.edges:
+            self.routes.setdefault((e.src, e.src_port), []).append((e.dst, e.dst_port))
+        self.inputs: dict[str, list[Chunk]] | None = {b: [] for b in self.order} if capture \
+            else None
+
+    def push(self, block_id: str, chunk: Chunk) -> None:
+        """Deliver one chunk to a block and pass on whatever it emits."""
+        if self.inputs is not None:
+            self.inputs[block_id].append(chunk)
+        block = self.pipe.blocks[block_id]
+        block.deliver(chunk)
+        self._forward(block_id)
+
+    def _forward(self, block_id: str) -> None:
+        for port, out in self.pipe.blocks[block_id].take_output():
+            for dst, dst_port in self.routes.get((block_id, port), ()):
+                self.push(dst, Chunk(out.samples, out.start, out.rate, out.annotations,
+                                     dst_port))
+
+    def finish(self) -> None:
+        """End of stream, block by block in data-flow order."""
+        for bid in self.order:
+            self.pipe.blocks[bid].timed("finish")
+            self._forward(bid)
+
+    def feed(self, tape: np.ndarray, chunk: int, rate: float) -> None:
+        """Play a whole tape into the blocks behind the source, then finish."""
+        (first, port), = self.routes[("src", "out")]
+        for at in range(0, tape.shape[0], chunk):
+            self.push(first, Chunk(tape[at:at + chunk], at, rate, (), port))
+        self.finish()
+
+
+def best_of(repeats: int, run: Callable[[], float]) -> float:
+    """The shortest of ``repeats`` timings (seconds): the least disturbed by other load."""
+    return min(run() for _ in range(repeats))
+
+
+def time_runtime(scheme: str, tape: str, chunk: int) -> float:
+    pipe = replay_pipeline(scheme, tape, chunk)
+    runner = Runner(pipe)
+    t0 = time.perf_counter()
+    summary = runner.run()
+    elapsed = time.perf_counter() - t0
+    if summary["reason"] != "end-of-stream":
+        raise RuntimeError(f"{scheme} at chunk {chunk}: run ended by {summary['reason']}: "
+                           f"{summary.get('error')}")
+    return elapsed
+
+
+def time_reference(scheme: str, tape: str, rate: float) -> float:
+    inline = Inline(replay_pipeline(scheme, tape, REFERENCE_CHUNK))
+    t0 = time.perf_counter()
+    inline.feed(TAPES[tape], REFERENCE_CHUNK, rate)
+    return time.perf_counter() - t0
+
+
+def bench_receivers(sizes: Sizes) -> tuple[dict, dict, dict[str, dict[str, list[Chunk]]]]:
+    """Runtime and reference figures per scheme, and each block's captured input."""
+    receivers: dict[str, dict[str, float]] = {}
+    references: dict[str, float] = {}
+    captured: dict[str, dict[str, list[Chunk]]] = {}
+    for scheme in SCHEMES:
+        tape = f"rx-{scheme}"
+        TAPES[tape] = generate_tape(scheme, sizes.samples)
+        n = TAPES[tape].shape[0]
+        rate = float(config_doc(scheme)["pipeline"]["sample_rate"])
+        receivers[scheme] = {}
+        # side by side: the reference and the 64k runtime run alternate, best of the repeats
+        ref_times, rt_times = [], {c: [] for c in CHUNKS}
+        for _ in range(sizes.repeats):
+            ref_times.append(time_reference(scheme, tape, rate))
+            for c in CHUNKS:
+                rt_times[c].append(time_runtime(scheme, tape, c))
+        references[scheme] = n / min(ref_times) / 1e6
+        for c in CHUNKS:
+            receivers[scheme][str(c)] = n / min(rt_times[c]) / 1e6
+        inline = Inline(replay_pipeline(scheme, tape, REFERENCE_CHUNK), capture=True)
+        inline.feed(TAPES[tape], REFERENCE_CHUNK, rate)
+        assert inline.inputs is not None
+        captured[scheme] = inline.inputs
+    return receivers, references, captured
+
+
+# ----------------------------------------------------------------------------------------------
+# kernels
+
+
+def time_block(scheme: str, block_id: str, chunks: list[Chunk], repeats: int) -> float:
+    """Items/s (millions) of one configured block fed its captured input, alone."""
+    count = sum(len(c) for c in chunks)
+
+    def once() -> float:
+        block = replay_pipeline(scheme, f"rx-{scheme}", REFERENCE_CHUNK).blocks[block_id]
+        t0 = time.perf_counter()
+        for c in chunks:
+            block.deliver(c)
+            block.take_output()
+        block.timed("finish")
+        return time.perf_counter() - t0
+
+    return count / best_of(repeats, once) / 1e6
+
+
+def bench_kernels(sizes: Sizes, captured: dict[str, dict[str, list[Chunk]]]) -> dict[str, float]:
+    """Each stage alone, on the input it sees in the receiver."""
+    out: dict[str, float] = {}
+    tape = TAPES["rx-dbpsk"]
+    rate = 250_000.0
+
+    def mixer() -> float:
+        cycles = 1_300 / rate
+        row, phase = tone_row(cycles), 0.0
+        t0 = time.perf_counter()
+        for at in range(0, tape.shape[0], REFERENCE_CHUNK):
+            _, phase = frequency_shift(tape[at:at + REFERENCE_CHUNK], cycles, phase, row)
+        return time.perf_counter() - t0
+
+    def decimate_kernel() -> float:
+        taps, state = antialias_taps(5), None
+        t0 = time.perf_counter()
+        for at in range(0, tape.shape[0], REFERENCE_CHUNK):
+            _, state = fir_decimate(tape[at:at + REFERENCE_CHUNK], taps, 5, state)
+        return time.perf_counter() - t0
+
+    out["mixer"] = tape.shape[0] / best_of(sizes.repeats, mixer) / 1e6
+    out["decimate"] = tape.shape[0] / best_of(sizes.repeats, decimate_kernel) / 1e6
+    stages = {
+        "cfo": ("dbpsk", "cfo"),
+        "matched_filter": ("dbpsk", "mf"),
+        "timing_envelope": ("dbpsk", "timing"),
+        "timing_tones": ("2fsk", "timing"),
+        "energy_detect": ("ook", "det"),
+        "fsk_detect": ("2fsk", "det"),
+        "dbpsk_detect": ("dbpsk", "det"),
+        "dqpsk_detect": ("dqpsk", "det"),
+        "ber": ("ook", "ber"),
+    }
+    for name, (scheme, bid) in stages.items():
+        out[name] = time_block(scheme, bid, captured[scheme][bid], sizes.repeats)
+    out["framer"] = bench_framer(sizes)
+    return out
+
+
+def bench_framer(sizes: Sizes) -> float:
+    """Bits/s (millions) of the framer on packets separated by random bits."""
+    rng = np.random.default_rng(5)
+    one = []
+    while sum(p.shape[0] for p in one) < sizes.samples // 4:
+        payload = bytes(rng.integers(0, 256, 16, dtype=np.uint8))
+        one.append(packet_bits(payload))
+        one.append(rng.integers(0, 2, 96, dtype=np.uint8))
+    bits = np.concatenate(one)
+    pieces = [Chunk(bits[a:a + 4096], a, 9600.0) for a in range(0, bits.shape[0], 4096)]
+
+    def once() -> float:
+        block = Framer("framer")
+        block.configure({"in": StreamSpec("uint8", 9600.0)})
+        t0 = time.perf_counter()
+        for c in pieces:
+            block.deliver(c)
+            block.take_output()
+        block.timed("finish")
+        if not block.readings().get("packets"):
+            raise RuntimeError("framer bench found no packets")
+        return time.perf_counter() - t0
+
+    return bits.shape[0] / best_of(sizes.repeats, once) / 1e6
+
+
+# ----------------------------------------------------------------------------------------------
+# links
+
+
+def _free_tcp_address() -> str:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return f"tcp://127.0.0.1:{s.getsockname()[1]}"
+
+
+def _address(transport: str, tag: str, tmp: str) -> str:
+    if transport == "inproc":
+        return f"inproc://bench-{tag}"
+    if transport == "ipc":
+        return f"ipc://{tmp}/{tag}.sock"
+    return _free_tcp_address()
+
+
+def time_link(ctx: zmq.Context, address: str, chunk: Chunk, messages: int) -> float:
+    """Seconds to move ``messages`` chunks through a phasefree link, end included."""
+    abort = threading.Event()
+    outlet, inlet = open_link(ctx, address, LinkCounters("bench", False), "in", abort, 8)
+    got = [0]
+
+    def receive() -> None:
+        while True:
+            if not inlet.sock.poll(5000):
+                return
+            msg = inlet.receive()
+            if msg is None:
+                continue
+            if msg.kind is frame.MessageKind.END:
+                return
+            got[0] += len(msg.chunk)
+
+    t = threading.Thread(target=receive)
+    t0 = time.perf_counter()
+    t.start()
+    for i in range(messages):
+        outlet.send(Chunk(chunk.samples, i * len(chunk), chunk.rate))
+    outlet.end()
+    t.join()
+    elapsed = time.perf_counter() - t0
+    outlet.close()
+    inlet.close()
+    if got[0] != messages * len(chunk):
+        raise RuntimeError(f"link on {address} delivered {got[0]} samples")
+    return elapsed
+
+
+def time_raw(ctx: zmq.Context, address: str, chunk: Chunk, messages: int) -> float:
+    """Seconds for raw pyzmq PUSH/PULL to move the same frames (header part + samples)."""
+    tx, rx = ctx.socket(zmq.PUSH), ctx.socket(zmq.PULL)
+    for s in (tx, rx):
+        s.setsockopt(zmq.LINGER, 0)
+    tx.setsockopt(zmq.SNDHWM, 8)
+    rx.setsockopt(zmq.RCVHWM, 8)
+    rx.bind(address)
+    tx.connect(address)
+    header = bytes(frame.HEADER_SIZE)
+    got = [0]
+
+    def receive() -> None:
+        for _ in range(messages):
+            parts = rx.recv_multipart(copy=False)
+            got[0] += np.frombuffer(parts[1].buffer, dtype=np.complex64).shape[0]
+
+    t = threading.Thread(target=receive)
+    t0 = time.perf_counter()
+    t.start()
+    for _ in range(messages):
+        tx.send_multipart([header, chunk.samples], copy=False)
+    t.join()
+    elapsed = time.perf_counter() - t0
+    tx.close()
+    rx.close()
+    if got[0] != messages * len(chunk):
+        raise RuntimeError(f"raw pyzmq on {address} delivered {got[0]} samples")
+    return elapsed
+
+
+def bench_links(sizes: Sizes) -> tuple[dict[str, float], dict[str, float]]:
+    """Link hop over raw pyzmq for the same 16k-sample frames; and link Msamples/s."""
+    chunk = Chunk(TAPES["rx-ook"][:16384], 0, 250_000.0)
+    ratios, speeds = {}, {}
+    ctx = zmq.Context()
+    with tempfile.TemporaryDirectory(prefix="pf-bench-") as tmp:
+        for transport in ("inproc", "ipc", "tcp"):
+            link_t, raw_t = [], []
+            for i in range(sizes.repeats):
+                raw_t.append(time_raw(ctx, _address(transport, f"raw{i}", tmp), chunk,
+                                      sizes.link_messages))
+                link_t.append(time_link(ctx, _address(transport, f"link{i}", tmp), chunk,
+                                        sizes.link_messages))
+            ratios[transport] = min(raw_t) / min(link_t)
+            speeds[transport] = sizes.link_messages * len(chunk) / min(link_t) / 1e6
+    ctx.term()
+    return ratios, speeds
+
+
+# ----------------------------------------------------------------------------------------------
+# two processes against one
+
+
+SPLIT_SCHEME = "dbpsk"
+FRONT = ("dec", "cfo", "mf")
+BACK = ("timing", "det", "ber")
+
+
+def _half(pipe: Pipeline, ids: tuple[str, ...]) -> list[Block]:
+    return [pipe.blocks[b] for b in ids]
+
+
+def _run_half(chain: list[Block], chunk: Chunk) -> list[Chunk]:
+    """Push a chunk down a linear chain of blocks; return what the last one emits."""
+    pending = [chunk]
+    for block in chain:
+        nxt = []
+        for c in pending:
+            block.deliver(c)
+            nxt.extend(out for port, out in block.take_output() if port in ("out", "bits"))
+        pending = nxt
+    return pending
+
+
+def _finish_half(chain: list[Block]) -> list[Chunk]:
+    out: list[Chunk] = []
+    for i, block in enumerate(chain):
+        block.timed("finish")
+        rest = [c for port, c in block.take_output() if port in ("out", "bits")]
+        for later in chain[i + 1:]:
+            nxt = []
+            for c in rest:
+                later.deliver(c)
+                nxt.extend(o for port, o in later.take_output() if port in ("out", "bits"))
+            rest = nxt
+        out.extend(rest)
+    return out
+
+
+def _front_process(samples: int, address: str, ready, go) -> None:
+    TAPES["split"] = generate_tape(SPLIT_SCHEME, samples)
+    chain = _half(replay_pipeline(SPLIT_SCHEME, "split", REFERENCE_CHUNK), FRONT)
+    ctx = zmq.Context()
+    tx = ctx.socket(zmq.PUSH)
+    tx.setsockopt(zmq.SNDHWM, 8)
+    tx.connect(address)
+    ready.set()
+    go.wait()
+    seq, tape = 0, TAPES["split"]
+    for at in range(0, tape.shape[0], REFERENCE_CHUNK):
+        for out in _run_half(chain, Chunk(tape[at:at + REFERENCE_CHUNK], at, 250_000.0)):
+            tx.send_multipart(frame.encode(out, seq), copy=False)
+            seq += 1
+    for out in _finish_half(chain):
+        tx.send_multipart(frame.encode(out, seq), copy=False)
+        seq += 1
+    tx.send_multipart(frame.encode_end(seq, 0))
+    tx.close(linger=-1)
+    ctx.term()
+
+
+def _back_process(address: str, ready, done) -> None:
+    TAPES["split"] = np.zeros(1, np.complex64)
+    chain = _half(replay_pipeline(SPLIT_SCHEME, "split", REFERENCE_CHUNK), BACK)
+    ctx = zmq.Context()
+    rx = ctx.socket(zmq.PULL)
+    rx.setsockopt(zmq.RCVHWM, 8)
+    rx.bind(address)
+    ready.set()
+    while True:
+        msg = frame.decode(rx.recv_multipart(copy=False))
+        if msg.kind is frame.MessageKind.END:
+            break
+        _run_half(chain, msg.chunk)
+    _finish_half(chain)
+    done.put(int(chain[-1].readings()["bits"]))
+    rx.close(linger=0)
+    ctx.term()
+
+
+def bench_processes(sizes: Sizes) -> tuple[float, dict[str, float]]:
+    """Speedup of the split chain in two processes over the same work in one."""
+    samples = sizes.samples
+    TAPES["split"] = generate_tape(SPLIT_SCHEME, samples)
+
+    def one() -> float:
+        pipe = replay_pipeline(SPLIT_SCHEME, "split", REFERENCE_CHUNK)
+        front, back = _half(pipe, FRONT), _half(pipe, BACK)
+        tape = TAPES["split"]
+        t0 = time.perf_counter()
+        for at in range(0, tape.shape[0], REFERENCE_CHUNK):
+            for out in _run_half(front, Chunk(tape[at:at + REFERENCE_CHUNK], at, 250_000.0)):
+                _run_half(back, out)
+        for out in _finish_half(front):
+            _run_half(back, out)
+        _finish_half(back)
+        return time.perf_counter() - t0
+
+    spawn = mp.get_context("spawn")
+
+    def two() -> float:
+        with tempfile.TemporaryDirectory(prefix="pf-bench-") as tmp:
+            address = f"ipc://{tmp}/split.sock"
+            ready_a, ready_b, go = spawn.Event(), spawn.Event(), spawn.Event()
+            done = spawn.Queue()
+            back = spawn.Process(target=_back_process, args=(address, ready_b, done))
+            back.start()
+            ready_b.wait(60)
+            front = spawn.Process(target=_front_process, args=(samples, address, ready_a, go))
+            front.start()
+            ready_a.wait(60)
+            t0 = time.perf_counter()
+            go.set()
+            bits = done.get(timeout=300)
+            elapsed = time.perf_counter() - t0
+            front.join(10)
+            back.join(10)
+            if bits <= 0:
+                raise RuntimeError("split chain counted no bits")
+            return elapsed
+
+    t_one, t_two = [], []
+    for _ in range(sizes.repeats):
+        t_one.append(one())
+        t_two.append(two())
+    return min(t_one) / min(t_two), {"one": samples / min(t_one) / 1e6,
+                                     "two": samples / min(t_two) / 1e6}
+
+
+# ----------------------------------------------------------------------------------------------
+# memory and latency
+
+
+def _memory_child(symbols: int, result) -> None:
+    doc = config_doc("ook")
+    doc["blocks"]["src"].update(symbols=symbols, chunk_size=16384)
+    summary = Runner(pipeline_from_dict(doc)).run()
+    bits = summary["blocks"]["ber"]["bits"]
+    result.put((resource.getrusage(resource.RUSAGE_SELF).ru_maxrss, bits))
+
+
+def bench_memory(sizes: Sizes) -> tuple[float, float]:
+    """Peak RSS (MB) of a 3-unit run (source included) and its ratio to a 1-unit run."""
+    spawn = mp.get_context("spawn")
+    peaks = []
+    for units in (1, 3):
+        result = spawn.Queue()
+        child = spawn.Process(target=_memory_child, args=(units * sizes.memory_symbols, result))
+        child.start()
+        maxrss_kb, bits = result.get(timeout=300)
+        child.join(10)
+        if bits <= 0:
+            raise RuntimeError("memory run counted no bits")
+        peaks.append(maxrss_kb / 1024.0)  # Linux reports ru_maxrss in KiB (getrusage(2))
+    return peaks[1], peaks[1] / peaks[0]
+
+
+def bench_latency(sizes: Sizes) -> float:
+    """Median ms from a paced source's chunk to its samples at a sink behind dec and mf."""
+    rate, factor, chunk = 250_000.0, 5, 4096
+    TAPES["latency"] = TAPES["rx-ook"][: int(sizes.latency_s * rate)]
+    STAMPS["latency"] = {"emit": [], "seen": []}
+    pipe = Pipeline("latency")
+    pipe.add(ReplaySource("src", tape="latency", chunk_size=chunk, realtime=True,
+                          sample_rate=rate))
+    pipe.add(Decimate("dec", factor=factor))
+    pipe.add(MatchedFilter("mf", shape="rect", symbol_rate=4_800.0))
+    pipe.add(Probe("probe", tape="latency"))
+    pipe.connect("src", "dec")
+    pipe.connect("dec", "mf")
+    pipe.connect("mf", "probe")
+    pipe.validate()
+    Runner(pipe).run()
+    seen = STAMPS["latency"]["seen"]
+    delays = []
+    for stop, t_emit in STAMPS["latency"]["emit"]:
+        need = math.ceil(stop / factor)
+        arrival = next((t for s, t in seen if s >= need), None)
+        if arrival is not None:
+            delays.append(arrival - t_emit)
+    if not delays:
+        raise RuntimeError("latency probe saw no samples")
+    return 1e3 * float(np.median(delays))
+
+
+# ----------------------------------------------------------------------------------------------
+# report
+
+
+def run(sizes: Sizes) -> dict[str, Any]:
+    """Every section, in one run."""
+    receivers, references, captured = bench_receivers(sizes)
+    kernels = bench_kernels(sizes, captured)
+    links, link_msps = bench_links(sizes)
+    processes, process_msps = bench_processes(sizes)
+    peak, growth = bench_memory(sizes)
+    latency = bench_latency(sizes)
+    return {
+        "receivers": receivers,
+        "references": references,
+        "overhead": {s: receivers[s]["65536"] / references[s] for s in SCHEMES},
+        "realtime_margin": {s: receivers[s]["65536"] * 1e6 / SDR_RATE for s in SCHEMES},
+        "kernels": kernels,
+        "links": links,
+        "link_msps": link_msps,
+        "processes": processes,
+        "process_msps": process_msps,
+        "peak_rss_mb": peak,
+        "rss_growth": growth,
+        "latency_ms": latency,
+    }
+
+
+def table(result: dict[str, Any]) -> str:
+    """The figures as a readable table, with the targets they are judged against."""
+    lines = ["receivers through the runtime (Msamples/s of input)",
+             f"  {'scheme':<7}" + "".join(f"{c:>9}" for c in CHUNKS)
+             + f"{'no runtime':>12}{'ratio':>8}{'x 2.4M':>8}"]
+    for s in SCHEMES:
+        r = result["receivers"][s]
+        lines.append(f"  {s:<7}" + "".join(f"{r[str(c)]:>9.2f}" for c in CHUNKS)
+                     + f"{result['references'][s]:>12.2f}{result['overhead'][s]:>8.2f}"
+                     + f"{result['realtime_margin'][s]:>8.1f}")
+    lines.append("  targets: ratio >= 0.9, x 2.4M >= 16")
+    lines.append("kernels alone (M items/s of their own input)")
+    lines.extend(f"  {k:<16}{v:>9.2f}" for k, v in result["kernels"].items())
+    lines.append("link hop vs raw pyzmq, 16k-sample frames (target >= 0.7)")
+    lines.extend(f"  {k:<7} {v:>6.2f}  ({result['link_msps'][k]:.0f} Msamples/s)"
+                 for k, v in result["links"].items())
+    pm = result["process_msps"]
+    lines.append(f"two processes vs one: {result['processes']:.2f}x  ({pm['two']:.2f} vs "
+                 f"{pm['one']:.2f} Msamples/s; target >= 1.5)")
+    lines.append(f"peak RSS {result['peak_rss_mb']:.1f} MB, 3x run / 1x run = "
+                 f"{result['rss_growth']:.2f} (bounded: about 1)")
+    lines.append(f"latency at real-time pacing: {result['latency_ms']:.1f} ms (median)")
+    return "\n".join(lines)
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--quick", action="store_true", help="smaller sizes, under a minute")
+    parser.add_argument("--tiny", action="store_true",
+                        help="smallest sizes (smoke test; figures are not meaningful)")
+    parser.add_argument("--json", action="store_true", help="print one JSON object")
+    args = parser.parse_args(argv)
+    size = "tiny" if args.tiny or os.environ.get("PHASEFREE_BENCH_TINY") else (
+        "quick" if args.quick else "full")
+    result = run(SIZES[size])
+    result["size"] = size
+    print(json.dumps(result, indent=None if args.json else 2) if args.json else table(result))
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
