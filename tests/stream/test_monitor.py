@@ -283,7 +283,7 @@ def test_soak_monitor_scraped_every_second():
         late: list[tuple[int, int, int]] = []
         while (elapsed := time.monotonic() - start) < SOAK_S:
             tick = time.monotonic()
-            assert "phasefree_bits_total" in run.metrics()
+            assert "phasefree_block_samples_in_total" in run.metrics()
             assert run.status()["event"] == "status"
             figures = _proc_figures(pid)
             if WARM_UP_S <= elapsed < WARM_UP_S + 30:
