@@ -28,6 +28,7 @@ from stream.host import HostProbe
 from stream.loader import pipeline_from_dict
 from stream.metrics import RunCollector, exposition
 from stream.monitor import Monitor, is_loopback, open_monitor, parse_address
+from stream.report import LiveView
 from stream.runner import Runner
 from tests.stream.monitored import REPO, MonitoredRun, samples, value, wait_for
 
@@ -298,3 +299,20 @@ def test_soak_monitor_scraped_every_second():
         assert max(f[1] for f in late) <= max(f[1] for f in early), (early, late)
         assert max(f[2] for f in late) <= max(f[2] for f in early), (early, late)
         assert run.stop() == 0
+
+
+# -- the terminal view ------------------------------------------------------------------------
+def test_live_view_headline_shows_ber_estimate_packets_and_host():
+    status = json.loads(json.dumps(STATUS))
+    status["blocks"]["frames"] = {"kind": "deframe", "packets": 12, "crc_failures": 1,
+                                  "samples_in": 900, "samples_out": 0, "chunks_in": 2,
+                                  "chunks_out": 0, "busy_s": 0.0, "busy": 0.0}
+    out = io.StringIO()
+    LiveView(out).draw(status)
+    lines = out.getvalue().split("\n")
+    headline = lines[1]
+    assert "BER 1.40e-03 [5.00e-04, 2.90e-03] over 5000 bits" in headline
+    assert "Eb/N0 8.7 dB (estimate)" in headline        # the snr meter's, not the source's 9.0
+    assert "packets 12, 1 CRC failures" in headline
+    assert "load 0.50" in headline and "52 °C" in headline and "board throttled" in headline
+    assert any(line.removeprefix("\x1b[2K").startswith("ber ") for line in lines)
