@@ -242,7 +242,7 @@ def test_decisions_do_not_depend_on_the_carrier_phase(modulation, tmp_path):
     doc["blocks"]["soft"] = {"kind": "record", "format": "raw"}
     doc["pipeline"]["links"] = [doc["pipeline"]["links"][0].replace("src -> dec",
                                                                     "src -> turn -> dec"),
-                                "det.soft -> soft"]
+                                *doc["pipeline"]["links"][1:], "det.soft -> soft"]
     decisions, phases, errors = [], [], []
     for seed in (3, 4, 5):
         out = tmp_path / f"soft-{seed}.f32"

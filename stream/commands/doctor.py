@@ -101,7 +101,7 @@ def check_soapysdr() -> tuple[list[Finding], object | None]:
         else:
             fix = ("install it: sudo apt install python3-soapysdr (Debian, Ubuntu, Raspberry Pi "
                    "OS), or build SoapySDR with its Python bindings for this interpreter")
-        return [Finding("soapysdr", "fail", str(err), fix)], None
+        return [Finding("soapysdr", "fail", str(err).split("; ")[0], fix)], None
     found = [Finding("soapysdr", "ok", f"SoapySDR {soapy.getLibVersion()} (API "
                      f"{soapy.getAPIVersion()}) from {getattr(soapy, '__file__', '?')}")]
     modules = list(soapy.listModules())
@@ -121,7 +121,7 @@ def check_soapysdr() -> tuple[list[Finding], object | None]:
     if loader is not None:
         soapy.loadModules()
         for path in modules:
-            problems = {str(k): str(v) for k, v in dict(loader(path)).items()}
+            problems = {str(k): str(v) for k, v in dict(loader(path)).items() if str(v)}
             if problems:
                 found.append(Finding("modules", "warn", f"{Path(path).name} did not load: "
                                      f"{'; '.join(problems.values())}",
