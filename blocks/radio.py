@@ -250,6 +250,11 @@ class RadioSource(Source):
         except ParamError as err:
             raise ParamError(f"fallback_params.{err.name}", err.message) from None
 
+    @property
+    def fallback_source(self) -> Source | None:
+        """The fallback block built from ``fallback_params`` (None with ``fallback = none``)."""
+        return self._fallback
+
     # -- prepare once ------------------------------------------------------------------------
     @property
     def rate(self) -> float:

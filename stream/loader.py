@@ -176,10 +176,19 @@ def _apply_overrides(docs: list[dict[str, Any]], overrides: Sequence[str]) -> No
                                 f"unknown block {block_id!r} (blocks: {known})")
         else:
             table = blocks[block_id]
+        where = "pipeline" if block_id == "pipeline" else f"blocks.{block_id}"
+        *path, key = param.split(".")  # src.fallback_params.ebn0_db reaches a sub-table
+        for name in path:
+            if not isinstance(table, dict):
+                raise PipelineError(where, "must be a table")
+            inner = table.get(name, {})
+            if not isinstance(inner, dict):
+                raise PipelineError(f"{where}.{name}", f"is not a table (got {inner!r})")
+            table[name] = dict(inner)  # copied, so the caller's parsed file is left as it was
+            table, where = table[name], f"{where}.{name}"
         if not isinstance(table, dict):
-            where = "pipeline" if block_id == "pipeline" else f"blocks.{block_id}"
             raise PipelineError(where, "must be a table")
-        table[param] = value
+        table[key] = value
 
 
 def pipeline_from_dict(doc: dict[str, Any], overrides: Sequence[str] = ()) -> Pipeline:

@@ -115,6 +115,11 @@ def test_the_written_out_formulas_agree_with_the_theory_module():
 def test_shipped_file_is_valid_and_endless(name):
     pipe = load_pipeline(config(name))
     src = pipe.blocks["src"]
+    # the default receives from a radio when one is attached, else from its simulated fallback
+    radio = src.kind == "radio"
+    if radio:
+        assert src.p.fallback == "sim"
+        src = src.fallback_source
     assert src.kind == "sim"
     assert src.p.symbols == 0 and src.p.packets == 0            # runs until stopped
     assert pipe.blocks["ber"].kind == "ber"
@@ -123,14 +128,17 @@ def test_shipped_file_is_valid_and_endless(name):
     assert src.p.clock_ppm != 0 and src.p.random_phase
     assert "orchard" in tomllib.loads(config(name).read_text())["pipeline"]["description"]
     # Eb/N0 can be set from the command line
-    again = load_pipeline(config(name), ["src.ebn0_db=4.5"])
-    assert again.blocks["src"].p.ebn0_db == 4.5
+    key = "src.fallback_params.ebn0_db" if radio else "src.ebn0_db"
+    again = load_pipeline(config(name), [f"{key}=4.5"])
+    again_src = again.blocks["src"]
+    assert (again_src.fallback_source if radio else again_src).p.ebn0_db == 4.5
 
 
 def test_default_is_the_paced_2fsk_loopback():
     pipe = load_pipeline(config("default"))
-    assert pipe.blocks["src"].p.modulation == "2fsk"
-    assert pipe.blocks["src"].p.realtime
+    radio = pipe.blocks["src"]
+    assert radio.kind == "radio" and radio.p.realtime
+    assert radio.fallback_source.p.modulation == "2fsk"
     assert pipe.blocks["det"].kind == "fsk_detect"
 
 

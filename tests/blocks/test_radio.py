@@ -451,6 +451,22 @@ def test_missing_module_falls_back_in_one_line(monkeypatch, caplog):
     assert "not importable" in r["fallback_reason"] and r["modulation"] == "2fsk"
 
 
+def test_recording_fallback_plays_the_file(monkeypatch, tmp_path):
+    monkeypatch.setitem(sys.modules, "SoapySDR", None)
+    x = noise_air(5000).samples
+    path = tmp_path / "bench.cf32"
+    x.tofile(path)
+    block = RadioSource("src", frequency_hz=868.3e6, sample_rate=RATE, chunk_size=2000,
+                        fallback="recording",
+                        fallback_params={"path": str(path), "datatype": "cf32_le"})
+    block.configure({})
+    got = []
+    while block.produce():
+        got.extend(c.samples for _, c in block.take_output())
+    np.testing.assert_array_equal(np.concatenate(got), x)
+    assert block.readings()["fallback"] == "recording"
+
+
 def test_fallback_none_refuses_to_run_with_the_reason(monkeypatch):
     monkeypatch.setitem(sys.modules, "SoapySDR", None)
     block = RadioSource("src", frequency_hz=868.3e6, sample_rate=250_000.0)
@@ -498,7 +514,8 @@ def test_fallback_params_are_checked_on_any_machine():
     assert (info.value.name, info.value.message) == ("fallback_params.modulation", "is required")
     with pytest.raises(ParamError, match="radio's own sample_rate"):
         fallback_radio(fallback_params={**SIM, "sample_rate": 1e6})
-    assert RadioSource("src", frequency_hz=1e8, fallback_params=SIM)._fallback is None
+    assert RadioSource("src", frequency_hz=1e8, fallback_params=SIM).fallback_source is None
+    assert fallback_radio().fallback_source.p.modulation == "2fsk"
 
 
 # -- whole runs -------------------------------------------------------------------------------
