@@ -75,6 +75,8 @@ PIPELINE_KEYS = {
 }
 #: Top-level tables of a pipeline file.
 TABLES = ("pipeline", "blocks", "parts", "crossings")
+# where an included file's table came from (not a TOML key: TOML keys cannot hold a NUL)
+_SOURCE = "\0file"
 _QUEUE_DEPTH = Param("queue_depth", int, 8, low=1, high=1 << 16)
 #: Keys of ``[pipeline]`` handed down to blocks that declare a parameter of the same name.
 INHERITED = ("sample_rate", "symbol_rate")
@@ -124,6 +126,11 @@ def load_pipeline(path: str | Path, overrides: Sequence[str] = ()) -> Pipeline:
     name = str(path)
     docs: list[dict[str, Any]] = []
     _read_with_includes(Path(path), docs, set())
+    for doc in docs[1:]:  # an included file's own mistakes are reported against it
+        try:
+            _head(doc)
+        except PipelineError as err:
+            raise err.in_file(doc[_SOURCE]) from None
     try:
         return _assemble(docs, overrides)
     except PipelineError as err:
@@ -150,6 +157,10 @@ def _read_with_includes(path: Path, docs: list[dict[str, Any]], seen: set[Path])
     seen.add(path.resolve())
     doc = _read_doc(path)
     docs.append(doc)
+    if docs[0] is not doc:
+        doc = dict(doc)
+        docs[-1] = doc
+        doc[_SOURCE] = str(path)
     head = doc.get("pipeline", {})
     include = head.get("include", []) if isinstance(head, dict) else []
     if not isinstance(include, list) or not all(isinstance(i, str) for i in include):
@@ -197,7 +208,7 @@ def pipeline_from_dict(doc: dict[str, Any], overrides: Sequence[str] = ()) -> Pi
 
 
 def _copy(doc: dict[str, Any]) -> dict[str, Any]:
-    doc = {k: (dict(v) if isinstance(v, dict) else v) for k, v in doc.items()}
+    doc = {k: (dict(v) if isinstance(v, dict) else v) for k, v in doc.items() if k != _SOURCE}
     if isinstance(doc.get("blocks"), dict):
         doc["blocks"] = {k: (dict(v) if isinstance(v, dict) else v)
                          for k, v in doc["blocks"].items()}
@@ -206,7 +217,7 @@ def _copy(doc: dict[str, Any]) -> dict[str, Any]:
 
 def _head(doc: dict[str, Any]) -> dict[str, Any]:
     for key in doc:
-        if key not in TABLES:
+        if key not in TABLES and key != _SOURCE:
             raise PipelineError(key, "unknown table (expected [pipeline], [blocks.ID], "
                                 "[parts] and [crossings])")
     head = doc.get("pipeline", {})
