@@ -48,21 +48,27 @@ def differential_products(y: np.ndarray, last: np.ndarray | None = None,
     last : numpy.ndarray
         The last sample seen (length 1, or 0 if none yet), for the next call.
     """
-    y = np.asarray(y, dtype=np.complex64)
+    y = np.ascontiguousarray(y, dtype=np.complex64)
     if last is not None and last.size:
         y = np.concatenate([last.astype(np.complex64), y])
-    cur, prev = y[1:], y[:-1]
-    d = cur * np.conj(prev)
-    mag = y.real.astype(np.float64) ** 2 + y.imag.astype(np.float64) ** 2
-    return d.astype(np.complex64), mag[1:] + mag[:-1], y[-1:].copy()
+    d = y[1:] * y[:-1].conj()
+    parts = y.view(np.float32).astype(np.float64)
+    parts *= parts
+    mag = parts[0::2] + parts[1::2]
+    return d, mag[1:] + mag[:-1], y[-1:].copy()
 
 
 def _bit_groups(steps: tuple[float, ...]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Conjugate constellation of the steps and, per bit, which codes carry a 1 or a 0."""
+    """Conjugate constellation of the steps and, per bit, the codes that carry a 1 or a 0.
+
+    The code groups are index arrays of shape (bits, codes per group), so one gather and one
+    maximum over the last axis give every bit's max-log term at once.
+    """
     points = np.exp(-1j * np.asarray(steps)).astype(np.complex64)
     codes = np.arange(len(steps))
     ones = np.array([(codes >> (1 - b)) & 1 == 1 for b in range(2)])
-    return points, ones, ~ones
+    return points, np.array([np.flatnonzero(r) for r in ones]), \
+        np.array([np.flatnonzero(~r) for r in ones])
 
 
 _DQPSK_POINTS, _DQPSK_ONES, _DQPSK_ZEROS = _bit_groups(DQPSK_STEPS)
@@ -112,10 +118,7 @@ def dpsk_detect(y: np.ndarray, modulation: str, state: np.ndarray | None = None,
         soft = -2.0 * d.real / safe
     elif modulation == "dqpsk":
         proj = (d[:, None] * _DQPSK_POINTS[None, :]).real.astype(np.float64)
-        soft = np.empty((d.shape[0], 2), dtype=np.float64)
-        for b in range(2):
-            soft[:, b] = (proj[:, _DQPSK_ONES[b]].max(axis=1)
-                          - proj[:, _DQPSK_ZEROS[b]].max(axis=1))
+        soft = proj[:, _DQPSK_ONES].max(axis=2) - proj[:, _DQPSK_ZEROS].max(axis=2)
         soft = (np.sqrt(2.0) * soft / safe[:, None]).ravel()
     else:
         raise ValueError(f"modulation must be 'dbpsk' or 'dqpsk' (got {modulation!r})")

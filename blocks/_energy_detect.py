@@ -144,12 +144,20 @@ def two_level_split(z: np.ndarray) -> tuple[float, float, int]:
     n = s.shape[0]
     if n < 2:
         raise ValueError(f"z must hold at least 2 values (got {n})")
-    csum = np.cumsum(s)
+    low, high, k, _ = _split_sorted_rows(s[None, :])
+    return float(low[0]), float(high[0]), int(k[0])
+
+
+def _split_sorted_rows(s: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """``two_level_split`` of every row of ``s`` (rows sorted ascending), and their cumsums."""
+    n = s.shape[1]
+    csum = np.cumsum(s, axis=1)
     k = np.arange(1, n)
-    m0 = csum[:-1] / k
-    m1 = (csum[-1] - csum[:-1]) / (n - k)
-    best = int(np.argmax(k * (n - k) * (m1 - m0) ** 2))
-    return float(m0[best]), float(m1[best]), int(k[best])
+    m0 = csum[:, :-1] / k
+    m1 = (csum[:, -1:] - csum[:, :-1]) / (n - k)
+    best = np.argmax(k * (n - k) * (m1 - m0) ** 2, axis=1)
+    rows = np.arange(s.shape[0])
+    return m0[rows, best], m1[rows, best], best + 1, csum
 
 
 def _log_i0(x: np.ndarray | float) -> np.ndarray:
@@ -179,6 +187,7 @@ def rice_threshold(signal_power: float, noise_floor: float) -> float:
     The equation is solved for ``x`` by Newton's method from ``x = 2 sqrt(A^2/s)``, where
     ``log I0(x) <= x^2/4`` guarantees a start below the root; ``log I0`` is convex, so the
     iteration converges monotonically after the first step. Then ``T = (x s)^2 / (4 A^2)``.
+    The windows of ``energy_detect`` are solved together, one array per Newton step.
 
     References
     ----------
@@ -187,32 +196,43 @@ def rice_threshold(signal_power: float, noise_floor: float) -> float:
     if not signal_power > 0 or not noise_floor > 0:
         raise ValueError(f"signal_power and noise_floor must be > 0 "
                          f"(got {signal_power!r}, {noise_floor!r})")
+    return float(_rice_threshold_rows(np.array([signal_power], dtype=np.float64),
+                                      np.array([noise_floor], dtype=np.float64))[0])
+
+
+def _rice_threshold_rows(signal_power: np.ndarray, noise_floor: np.ndarray) -> np.ndarray:
+    """``rice_threshold`` of every element (arrays of valid, positive values)."""
     gamma = signal_power / noise_floor
-    x = 2.0 * math.sqrt(gamma)
+    x = 2.0 * np.sqrt(gamma)
+    todo = np.arange(x.shape[0])
     for _ in range(60):
-        step = (float(_log_i0(x)) - gamma) / float(i1e(x) / i0e(x))
-        x -= step
-        if abs(step) <= 1e-13 * x:
+        xt = x[todo]
+        step = (_log_i0(xt) - gamma[todo]) / (i1e(xt) / i0e(xt))
+        xt = xt - step
+        x[todo] = xt
+        todo = todo[~(np.abs(step) <= 1e-13 * xt)]
+        if not todo.size:
             break
     return (x * noise_floor) ** 2 / (4.0 * signal_power)
 
 
-def ook_llr(z: np.ndarray, signal_power: float, noise_floor: float) -> np.ndarray:
+def ook_llr(z: np.ndarray, signal_power: float | np.ndarray,
+            noise_floor: float | np.ndarray) -> np.ndarray:
     """Log-likelihood ratio ``log p1(z)/p0(z)`` of "on" against "off" for energies ``z``.
 
     Parameters
     ----------
     z : numpy.ndarray
         Symbol energies ``|y|^2``.
-    signal_power, noise_floor : float
-        ``A^2`` and ``sigma^2`` as in ``rice_threshold``.
+    signal_power, noise_floor : float or numpy.ndarray
+        ``A^2`` and ``sigma^2`` as in ``rice_threshold`` (arrays broadcast against ``z``).
 
     Returns
     -------
     numpy.ndarray
         ``log I0(2 A sqrt(z) / sigma^2) - A^2 / sigma^2`` (float64); positive means "on".
     """
-    a = math.sqrt(signal_power)
+    a = np.sqrt(signal_power)
     x = 2.0 * a * np.sqrt(np.asarray(z, dtype=np.float64)) / noise_floor
     return _log_i0(x) - signal_power / noise_floor
 
@@ -276,21 +296,52 @@ def estimate_levels(z: np.ndarray, false_alarm: float, min_contrast: float,
     OokLevels
         Levels and threshold; the decision statistics fields are left at their defaults.
     """
-    n = z.shape[0]
+    z = np.asarray(z, dtype=np.float64)
+    return _estimate_rows(z[None, :], false_alarm, min_contrast, held)[0]
+
+
+def _estimate_rows(z: np.ndarray, false_alarm: float, min_contrast: float,
+                   held: OokLevels | None) -> list[OokLevels]:
+    """``estimate_levels`` of consecutive windows, the rows of ``z``, each holding for the next.
+
+    Steps 1-2 of the module notes do not depend on earlier windows and run on all rows at once;
+    only the choice between held levels and the noise-only threshold goes row by row.
+    """
+    rows, n = z.shape
+    signal = np.zeros(rows, dtype=bool)
+    noise = np.zeros(rows)
+    on = np.full(rows, math.nan)
+    threshold = np.zeros(rows)
     if n >= 2 * MIN_CLUSTER:
-        low, high, k = two_level_split(z)
-        low = max(low, _FLOOR * high)
-        if min(k, n - k) >= MIN_CLUSTER and high > low:
-            levels = _refine(z, low, high)
-            if levels.on_level >= min_contrast * levels.noise_floor:
-                return levels
-    mean = float(np.mean(z))
-    if held is not None and mean >= held.threshold:
-        return OokLevels(held.noise_floor, held.on_level, held.threshold, True)
-    return OokLevels(mean, math.nan, cfar_factor(false_alarm, n) * mean, False)
+        s = np.sort(z, axis=1)
+        low, high, k, csum = _split_sorted_rows(s)
+        low = np.maximum(low, _FLOOR * high)
+        cand = np.flatnonzero((np.minimum(k, n - k) >= MIN_CLUSTER) & (high > low))
+        if cand.size:
+            floor, level, thr = _refine_rows(s[cand], csum[cand], low[cand], high[cand])
+            good = level >= min_contrast * floor
+            chosen = cand[good]
+            signal[chosen] = True
+            noise[chosen], on[chosen], threshold[chosen] = floor[good], level[good], thr[good]
+    means = z.mean(axis=1)
+    alpha = math.nan if signal.all() else cfar_factor(false_alarm, n)
+    out = []
+    for i in range(rows):
+        if signal[i]:
+            levels = OokLevels(float(noise[i]), float(on[i]), float(threshold[i]), True)
+        elif held is not None and means[i] >= held.threshold:
+            levels = OokLevels(held.noise_floor, held.on_level, held.threshold, True)
+        else:
+            mean = float(means[i])
+            levels = OokLevels(mean, math.nan, alpha * mean, False)
+        if levels.signal:
+            held = levels
+        out.append(levels)
+    return out
 
 
-def _refine(z: np.ndarray, low: float, high: float) -> OokLevels:
+def _refine_rows(s: np.ndarray, csum: np.ndarray, low: np.ndarray, high: np.ndarray,
+                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Re-estimate the levels from the split at the minimum-error threshold (module step 2).
 
     The two-means cut lies near the midpoint of the levels, above the minimum-error point, so
@@ -300,45 +351,62 @@ def _refine(z: np.ndarray, low: float, high: float) -> OokLevels:
     minimum-error point) and undoing the truncation of the exponential below the threshold,
     ``E[z | z < T] = s (1 - u e^-u / (1 - e^-u))`` with ``u = T / s``, removes most of that bias.
 
+    Every row of ``s`` is one window's energies sorted ascending, ``csum`` their cumulative
+    sums, so the mean of either side of a threshold is read off ``csum``. Returns the noise
+    floor, on level and threshold of every row.
+
     References
     ----------
     .. [1] T. W. Ridler and S. Calvard, "Picture thresholding using an iterative selection
        method", IEEE Trans. Systems, Man, and Cybernetics 8(8), 1978.
     """
-    noise, on = low, high
-    threshold = rice_threshold(on - noise, noise)
+    n = s.shape[1]
+    noise, on = low.copy(), high.copy()
+    threshold = _rice_threshold_rows(on - noise, noise)
+    todo = np.arange(s.shape[0])
     for _ in range(REFINE_STEPS):
-        off_mask = z <= threshold
-        count_off = int(np.count_nonzero(off_mask))
-        if min(count_off, z.shape[0] - count_off) < MIN_CLUSTER:
+        count_off = np.count_nonzero(s[todo] <= threshold[todo, None], axis=1)
+        keep = np.minimum(count_off, n - count_off) >= MIN_CLUSTER
+        todo, count_off = todo[keep], count_off[keep]
+        if not todo.size:
             break
-        u = threshold / noise
-        kept = 1.0 - u * math.exp(-u) / -math.expm1(-u)
-        noise = max(float(np.mean(z[off_mask])) / kept, _FLOOR * on)
-        on = float(np.mean(z[~off_mask]))
-        if not on > noise:
+        u = threshold[todo] / noise[todo]
+        kept = 1.0 - u * np.exp(-u) / -np.expm1(-u)
+        below = csum[todo, count_off - 1]
+        noise[todo] = np.maximum(below / count_off / kept, _FLOOR * on[todo])
+        on[todo] = (csum[todo, -1] - below) / (n - count_off)
+        todo = todo[on[todo] > noise[todo]]
+        if not todo.size:
             break
-        threshold = rice_threshold(on - noise, noise)
-    return OokLevels(noise, on, threshold, True)
+        threshold[todo] = _rice_threshold_rows(on[todo] - noise[todo], noise[todo])
+    return noise, on, threshold
 
 
-def _decide(z: np.ndarray, levels: OokLevels) -> tuple[np.ndarray, np.ndarray, OokLevels]:
-    """Hard and soft decisions of one window with its levels, and their statistics."""
-    if levels.signal:
-        soft = ook_llr(z, levels.on_level - levels.noise_floor, levels.noise_floor)
-    elif levels.noise_floor > 0:
-        soft = (z - levels.threshold) / levels.noise_floor
-    else:
-        soft = np.zeros_like(z)
+def _decide_rows(z: np.ndarray, levels: list[OokLevels],
+                 ) -> tuple[np.ndarray, np.ndarray, list[OokLevels]]:
+    """Hard and soft decisions of every row of ``z`` with its window's levels, and statistics."""
+    noise = np.array([lv.noise_floor for lv in levels])
+    on = np.array([lv.on_level for lv in levels])
+    threshold = np.array([lv.threshold for lv in levels])
+    signal = np.array([lv.signal for lv in levels], dtype=bool)
+    soft = np.zeros(z.shape)
+    rows = np.flatnonzero(signal)
+    if rows.size:
+        soft[rows] = ook_llr(z[rows], (on[rows] - noise[rows])[:, None], noise[rows, None])
+    rows = np.flatnonzero(~signal & (noise > 0))
+    if rows.size:
+        soft[rows] = (z[rows] - threshold[rows, None]) / noise[rows, None]
     bits = soft > 0
-    ones, zeros = z[bits], z[~bits]
-
-    def stats(v: np.ndarray) -> tuple[float, float]:
-        return (float(np.mean(v)), float(np.var(v))) if v.size else (math.nan, math.nan)
-
-    (m1, v1), (m0, v0) = stats(ones), stats(zeros)
-    full = OokLevels(levels.noise_floor, levels.on_level, levels.threshold, levels.signal,
-                     int(ones.size), int(zeros.size), m1, v1, m0, v0)
+    ones = np.count_nonzero(bits, axis=1)
+    zeros = z.shape[1] - ones
+    with np.errstate(invalid="ignore", divide="ignore"):
+        m1 = np.where(bits, z, 0.0).sum(axis=1) / ones
+        m0 = np.where(bits, 0.0, z).sum(axis=1) / zeros
+        v1 = np.where(bits, (z - m1[:, None]) ** 2, 0.0).sum(axis=1) / ones
+        v0 = np.where(bits, 0.0, (z - m0[:, None]) ** 2).sum(axis=1) / zeros
+    full = [OokLevels(lv.noise_floor, lv.on_level, lv.threshold, lv.signal, int(ones[i]),
+                      int(zeros[i]), float(m1[i]), float(v1[i]), float(m0[i]), float(v0[i]))
+            for i, lv in enumerate(levels)]
     return bits.astype(np.uint8), soft.astype(np.float32), full
 
 
@@ -389,23 +457,22 @@ def energy_detect(y: np.ndarray, window: int, false_alarm: float, min_contrast: 
     full = z.shape[0] // window
     bits_out, soft_out, levels_out = [], [], []
     held, last = state.held, state.last_window
-    for w in z[: full * window].reshape(full, window):
-        levels = estimate_levels(w, false_alarm, min_contrast, held)
-        bits, soft, levels = _decide(w, levels)
-        bits_out.append(bits)
-        soft_out.append(soft)
-        levels_out.append(levels)
-        if levels.signal:
-            held = levels
-        last = w
+    if full:
+        rows = z[: full * window].reshape(full, window)
+        levels_out = _estimate_rows(rows, false_alarm, min_contrast, held)
+        bits, soft, levels_out = _decide_rows(rows, levels_out)
+        bits_out.append(bits.ravel())
+        soft_out.append(soft.ravel())
+        held = next((lv for lv in reversed(levels_out) if lv.signal), held)
+        last = rows[-1]
     pending = z[full * window:]
     if final and pending.size:
         context = np.concatenate([last, pending])[-window:]
         levels = estimate_levels(context, false_alarm, min_contrast, held)
-        bits, soft, levels = _decide(pending, levels)
-        bits_out.append(bits)
-        soft_out.append(soft)
-        levels_out.append(levels)
+        bits, soft, levels = _decide_rows(pending[None, :], [levels])
+        bits_out.append(bits.ravel())
+        soft_out.append(soft.ravel())
+        levels_out.extend(levels)
         pending = pending[:0]
     bits = np.concatenate(bits_out) if bits_out else np.zeros(0, np.uint8)
     soft = np.concatenate(soft_out) if soft_out else np.zeros(0, np.float32)

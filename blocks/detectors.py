@@ -45,10 +45,12 @@ def split_at_gaps(chunk: Chunk, expected: int | None) -> list[tuple[np.ndarray, 
         Consecutive pieces; ``gap_before`` is true where the piece does not continue the one
         before it (a jump of ``start`` or a ``"gap"`` annotation at the piece's first sample).
     """
+    continuous = expected is None or chunk.start == expected
+    if continuous and not chunk.annotations:
+        return [(chunk.samples, chunk.start, False)]
     cuts = sorted({a.index for a in chunk.annotations
                    if a.label == "gap" and chunk.start <= a.index < chunk.stop})
-    first_gap = (expected is not None and chunk.start != expected) or (
-        bool(cuts) and cuts[0] == chunk.start)
+    first_gap = not continuous or (bool(cuts) and cuts[0] == chunk.start)
     edges = [chunk.start, *(c for c in cuts if c > chunk.start), chunk.stop]
     pieces = []
     for i, (a, b) in enumerate(itertools.pairwise(edges)):

@@ -10,12 +10,28 @@ Each discontinuity of the input (a ``"gap"`` annotation, or a chunk whose ``star
 continue the one before) starts a new capture segment whose ``core:global_index`` is the input
 stream's index there. Other annotations (``"packet"``, ``"sync-lost"``, ...) become SigMF
 annotations; their details go under the optional ``phasefree:data`` key.
+
+Events from further down the receive chain (a framer's ``payload`` port, a detector's bits)
+come in on the optional ``events`` port, which may run at another rate than the samples; only
+their annotations are used. Each is placed on the recording by time: an event at index ``i`` of
+an events stream at rate ``r`` happened ``i / r`` seconds into the stream, which is input sample
+``round(i / r * sample_rate)``, found in the dataset through the captures' global indices.
+An event that carries its own ``time_s`` (a framer's packet: the time of its sync word's first
+bit on the detector's bit stream) is placed by that instead, since a packet annotation sits on
+the payload stream, whose index is no clock. A packet's ``core:sample_count`` spans its sync
+word, length byte, payload and CRC-16 (``payload_start - start + payload_bits + 16`` bits at
+the events' rate, the bit rate); other events mark one sample. The placement is approximate
+by the latency of the receive chain between the recorded samples and the events (the delays
+of its filters and of timing recovery: a few symbols), and events falling in a gap between
+captures go to the first sample after it.
 """
 
 from __future__ import annotations
 
+import bisect
 import json
 import logging
+import math
 import os
 from pathlib import Path
 from typing import Any, BinaryIO
@@ -33,12 +49,32 @@ __all__ = ["Record"]
 
 log = logging.getLogger(__name__)
 
+#: Bits of the CRC-16 that ends every packet (the format of ``blocks/_packets.py``).
+_CRC_BITS = 16
+
+
+def _number(value: Any) -> float | None:
+    """``value`` as a finite number, or None."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+        return None
+    return float(value)
+
 
 class Record(Block):
-    """Write the incoming samples to a SigMF recording or a raw sample file."""
+    """Write the incoming samples to a SigMF recording or a raw sample file.
+
+    Annotations arriving on the optional ``events`` port (any rate, e.g. a framer's
+    ``payload``) are written too, placed on the recording by their time; that placement is
+    approximate by the receive chain's latency (its filter delays: a few symbols).
+    """
 
     kind = "record"
-    inputs = (Port("in", ("complex64", "float32"), "samples to record"),)
+    mixed_rates = True
+    inputs = (
+        Port("in", ("complex64", "float32"), "samples to record"),
+        Port("events", "any", "annotations to record (e.g. a framer's payload port), placed by "
+             "time: approximate by the receive chain's latency, a few symbols", optional=True),
+    )
     params = (
         Param("path", str, doc="sigmf: base name, .sigmf-meta or .sigmf-data; raw: the file"),
         Param("format", str, "sigmf", choices=("sigmf", "raw"),
@@ -53,6 +89,11 @@ class Record(Block):
               doc="seconds of recorded data between metadata rewrites"),
         Param("overwrite", bool, True, doc="replace an existing recording"),
     )
+
+    @classmethod
+    def port(cls, side: str, name: str | None) -> Port:
+        """As :meth:`Block.port`; a link that names no input enters the samples port ``in``."""
+        return super().port(side, "in" if side == "in" and name is None else name)
 
     def setup(self, inputs: dict[str, StreamSpec]) -> dict[str, StreamSpec]:
         spec = inputs["in"]
@@ -78,6 +119,9 @@ class Record(Block):
             if target.exists() and not self.p.overwrite:
                 raise ParamError("path", f"{target} exists and overwrite is false")
         self._rate = spec.rate
+        events = inputs.get("events")
+        if events is not None and not events.rate > 0:
+            raise ParamError("events", f"input rate must be > 0 (got {events.rate!r})")
         self._every = max(1, round(self.p.metadata_every_s * spec.rate))
         self._file: BinaryIO | None = None
         self._written = 0
@@ -99,6 +143,11 @@ class Record(Block):
         return out
 
     def process(self, chunk: Chunk) -> None:
+        if chunk.port == "events":
+            for note in chunk.annotations:
+                if note.label != "gap":          # gaps come from the recorded stream itself
+                    self._event(note, chunk.rate)
+            return
         out = self._file or self._open()
         if self._expected is None or chunk.start != self._expected:
             self._new_capture(self._written, chunk.start)
@@ -132,6 +181,35 @@ class Record(Block):
         count = note.data.get("sample_count") if isinstance(note.data, dict) else None
         if isinstance(count, bool) or not isinstance(count, int) or count < 0:
             count = 1       # an event marks the sample it happened at
+        self._add_note(note, at, count)
+
+    def _event(self, note: Annotation, rate: float) -> None:
+        """Place an annotation of the events stream (at ``rate``) on the recording by time."""
+        data = note.data if isinstance(note.data, dict) else {}
+        when = _number(data.get("time_s"))
+        stream_index = round((note.index / rate if when is None else when) * self._rate)
+        count = 1
+        if note.label == "packet":
+            fields = [_number(data.get(k)) for k in ("start", "payload_start", "payload_bits")]
+            if None not in fields:
+                start, payload_start, payload_bits = fields
+                bits = payload_start - start + payload_bits + _CRC_BITS
+                count = max(1, round(bits / rate * self._rate))
+        self._add_note(note, self._dataset_index(stream_index), count)
+
+    def _dataset_index(self, stream_index: int) -> int:
+        """The recording's sample index of the input stream's ``stream_index``."""
+        if not self._captures:
+            return max(0, stream_index)
+        starts = [c["core:global_index"] for c in self._captures]
+        k = max(0, bisect.bisect_right(starts, stream_index) - 1)
+        capture = self._captures[k]
+        at = capture["core:sample_start"] + stream_index - capture["core:global_index"]
+        if k + 1 < len(self._captures):
+            at = min(at, self._captures[k + 1]["core:sample_start"])
+        return max(0, at)
+
+    def _add_note(self, note: Annotation, at: int, count: int) -> None:
         entry: dict[str, Any] = {"core:sample_start": at, "core:sample_count": count,
                                  "core:label": str(note.label)}
         try:

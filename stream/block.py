@@ -97,6 +97,9 @@ class Block:
     inputs: ClassVar[tuple[Port, ...]] = ()
     outputs: ClassVar[tuple[Port, ...]] = ()
     params: ClassVar[tuple[Param, ...]] = ()
+    #: Whether the inputs may run at different rates (e.g. a sink that takes samples on one
+    #: port and events from the bit stream on another); otherwise a mismatch is an error.
+    mixed_rates: ClassVar[bool] = False
 
     def __init_subclass__(cls, **kwargs: Any) -> None:
         super().__init_subclass__(**kwargs)

@@ -139,8 +139,10 @@ _WIRE_DTYPES: dict[DtypeCode, np.dtype] = {
     DtypeCode.FLOAT64: np.dtype("<f8"),
 }
 _CODE_OF_DTYPE: dict[np.dtype, DtypeCode] = {dt: code for code, dt in _WIRE_DTYPES.items()}
-_KIND_VALUES = frozenset(int(kind) for kind in MessageKind)
-_DTYPE_VALUES = frozenset(int(code) for code in DtypeCode)
+# plain int -> member lookups: calling an IntEnum on a received value costs more than a frame's
+# other checks together
+_KIND_OF_VALUE: dict[int, MessageKind] = {int(kind): kind for kind in MessageKind}
+_DTYPE_OF_CODE: dict[int, np.dtype] = {int(code): dt for code, dt in _WIRE_DTYPES.items()}
 
 
 class FrameError(ValueError):
@@ -222,11 +224,9 @@ def encode(chunk: Chunk, seq: int) -> list[bytes | memoryview | np.ndarray]:
     samples = chunk.samples
     if samples.ndim != 1:
         raise ValueError(f"chunk samples must be one-dimensional (got shape {samples.shape})")
-    wire_dtype = samples.dtype.newbyteorder("<")
-    code = _CODE_OF_DTYPE.get(wire_dtype)
-    if code is None:
-        names = ", ".join(dt.name for dt in _WIRE_DTYPES.values())
-        raise ValueError(f"chunk dtype must be one of {names} (got {samples.dtype})")
+    code = _CODE_OF_DTYPE.get(samples.dtype)
+    if code is None or not samples.flags.c_contiguous:
+        code, samples = _wire_form(samples)
     if samples.shape[0] > MAX_SAMPLES:
         raise ValueError(
             f"chunk holds {samples.shape[0]} samples, more than MAX_SAMPLES={MAX_SAMPLES}"
@@ -235,7 +235,6 @@ def encode(chunk: Chunk, seq: int) -> list[bytes | memoryview | np.ndarray]:
     if not (math.isfinite(rate) and rate > 0):
         raise ValueError(f"chunk rate must be finite and > 0 (got {chunk.rate})")
     _check_start(chunk.start)
-    samples = np.ascontiguousarray(samples, dtype=wire_dtype)
     flags = _FLAG_ANNOTATIONS if chunk.annotations else 0
     header = _pack(MessageKind.DATA, seq, chunk.start, code=code, flags=flags, rate=rate,
                    count=samples.shape[0])
@@ -243,6 +242,16 @@ def encode(chunk: Chunk, seq: int) -> list[bytes | memoryview | np.ndarray]:
     if chunk.annotations:
         parts.append(_encode_annotations(chunk.annotations))
     return parts
+
+
+def _wire_form(samples: np.ndarray) -> tuple[DtypeCode, np.ndarray]:
+    """The wire code of ``samples`` and the samples made contiguous and little-endian."""
+    wire_dtype = samples.dtype.newbyteorder("<")
+    code = _CODE_OF_DTYPE.get(wire_dtype)
+    if code is None:
+        names = ", ".join(dt.name for dt in _WIRE_DTYPES.values())
+        raise ValueError(f"chunk dtype must be one of {names} (got {samples.dtype})")
+    return code, np.ascontiguousarray(samples, dtype=wire_dtype)
 
 
 def encode_end(seq: int, start: int) -> list[bytes]:
@@ -345,7 +354,7 @@ def _annotation_problem(index: object, label: object, data: object) -> str | Non
 # decoding
 
 
-def decode(parts: Sequence[zmq.Frame | bytes | memoryview]) -> Message:
+def decode(parts: Sequence[zmq.Frame | bytes | memoryview], port: str | None = None) -> Message:
     """Check and decode the parts of one received message.
 
     Parameters
@@ -353,6 +362,8 @@ def decode(parts: Sequence[zmq.Frame | bytes | memoryview]) -> Message:
     parts : sequence of zmq.Frame, bytes or memoryview
         The message as returned by ``socket.recv_multipart(copy=False)`` (frames) or
         ``copy=True`` (bytes).
+    port : str or None
+        The input port to name on a DATA message's chunk (``Chunk.port``).
 
     Returns
     -------
@@ -370,7 +381,7 @@ def decode(parts: Sequence[zmq.Frame | bytes | memoryview]) -> Message:
     Sizes are checked against :data:`MAX_SAMPLES` and :data:`MAX_ANNOTATION_BYTES` before
     anything is parsed, so a hostile header cannot make the receiver allocate.
     """
-    views = _as_views(parts)
+    views = _as_buffers(parts)
     if len(views) > 3:
         raise FrameError("parts", f"a message has 1 to 3 parts (got {len(views)})")
     magic, version, kind, code, flags, seq, start, rate, count = _unpack_header(views[0])
@@ -378,23 +389,29 @@ def decode(parts: Sequence[zmq.Frame | bytes | memoryview]) -> Message:
         raise FrameError("magic", f"magic must be {MAGIC!r} (got {magic!r})")
     if version != VERSION:
         raise FrameError("version", f"version must be {VERSION} (got {version})")
-    if kind not in _KIND_VALUES:
+    message_kind = _KIND_OF_VALUE.get(kind)
+    if message_kind is None:
         raise FrameError("type", f"unknown message type {kind}")
     if flags & ~_FLAG_ANNOTATIONS:
         raise FrameError("flags", f"reserved flag bits set (flags 0x{flags:02x})")
     if start < 0:
         raise FrameError("start", f"start index must be >= 0 (got {start})")
-    kind = MessageKind(kind)
-    if kind is MessageKind.DATA:
-        chunk = _decode_data(views, code, flags, start, rate, count)
-        return Message(kind, seq, start, chunk)
-    _check_control(views, kind, code, flags, start, rate, count)
-    return Message(kind, seq, start)
+    if message_kind is MessageKind.DATA:
+        chunk = _decode_data(views, code, flags, start, rate, count, port)
+        return Message(message_kind, seq, start, chunk)
+    _check_control(views, message_kind, code, flags, start, rate, count)
+    return Message(message_kind, seq, start)
 
 
-def _as_views(parts: Sequence[Any]) -> list[memoryview]:
+def _as_buffers(parts: Sequence[Any]) -> list[bytes | zmq.Frame | memoryview]:
+    """The parts as flat byte buffers whose ``len`` is their size in bytes.
+
+    Received frames and bytes are already that, and are passed through untouched (a
+    memoryview per frame would cost more than the rest of the checks together); anything
+    else is viewed as bytes, and must be contiguous.
+    """
     try:
-        views = [memoryview(p.buffer if isinstance(p, zmq.Frame) else p).cast("B")
+        views = [p if isinstance(p, (zmq.Frame, bytes)) else memoryview(p).cast("B")
                  for p in parts]
     except (TypeError, ValueError, AttributeError) as exc:
         raise FrameError("parts", f"every part must be a contiguous byte buffer ({exc})") from None
@@ -403,16 +420,16 @@ def _as_views(parts: Sequence[Any]) -> list[memoryview]:
     return views
 
 
-def _unpack_header(view: memoryview) -> tuple:
+def _unpack_header(view: bytes | zmq.Frame | memoryview) -> tuple:
     if len(view) < HEADER_SIZE:
         raise FrameError("truncated", f"header is {len(view)} bytes, needs {HEADER_SIZE}")
     if len(view) > HEADER_SIZE:
         raise FrameError("length", f"header is {len(view)} bytes, must be {HEADER_SIZE}")
-    return _HEADER.unpack(view)
+    return _HEADER.unpack(view.bytes if isinstance(view, zmq.Frame) else view)
 
 
-def _decode_data(views: list[memoryview], code: int, flags: int, start: int, rate: float,
-                 count: int) -> Chunk:
+def _decode_data(views: list, code: int, flags: int, start: int, rate: float, count: int,
+                 port: str | None) -> Chunk:
     expected_parts = 3 if flags & _FLAG_ANNOTATIONS else 2
     if len(views) != expected_parts:
         raise FrameError(
@@ -420,9 +437,9 @@ def _decode_data(views: list[memoryview], code: int, flags: int, start: int, rat
             f"a DATA message with flags 0x{flags:02x} has {expected_parts} parts "
             f"(got {len(views)})",
         )
-    if code not in _DTYPE_VALUES:
+    dtype = _DTYPE_OF_CODE.get(code)
+    if dtype is None:
         raise FrameError("dtype", f"unknown dtype code {code}")
-    dtype = DtypeCode(code).dtype
     if count > MAX_SAMPLES:
         raise FrameError("oversized", f"{count} samples, more than MAX_SAMPLES={MAX_SAMPLES}")
     if len(views[1]) != count * dtype.itemsize:
@@ -436,10 +453,10 @@ def _decode_data(views: list[memoryview], code: int, flags: int, start: int, rat
     annotations = _decode_annotations(views[2]) if expected_parts == 3 else ()
     samples = np.frombuffer(views[1], dtype=dtype)
     samples.setflags(write=False)
-    return Chunk(samples, start, rate, annotations)
+    return Chunk(samples, start, rate, annotations, port)
 
 
-def _check_control(views: list[memoryview], kind: MessageKind, code: int, flags: int,
+def _check_control(views: list, kind: MessageKind, code: int, flags: int,
                    start: int, rate: float, count: int) -> None:
     """Check an END, HEARTBEAT or SESSION message: a lone header with zero data fields."""
     if len(views) != 1:
@@ -458,7 +475,7 @@ def _check_control(views: list[memoryview], kind: MessageKind, code: int, flags:
         raise FrameError("start", "a SESSION message has a session id >= 1 (got 0)")
 
 
-def _decode_annotations(view: memoryview) -> tuple[Annotation, ...]:
+def _decode_annotations(view: bytes | zmq.Frame | memoryview) -> tuple[Annotation, ...]:
     if len(view) > MAX_ANNOTATION_BYTES:
         raise FrameError(
             "oversized",
@@ -467,7 +484,7 @@ def _decode_annotations(view: memoryview) -> tuple[Annotation, ...]:
         )
     try:
         records = json.loads(
-            bytes(view).decode("utf-8"),
+            (view.bytes if isinstance(view, zmq.Frame) else bytes(view)).decode("utf-8"),
             parse_constant=_reject_constant,
             parse_float=_finite_float,
             object_pairs_hook=_unique_keys,

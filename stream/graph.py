@@ -167,7 +167,7 @@ class Pipeline:
                                         f"{edge.dst}.{edge.dst_port} takes {port.dtype_text()}")
                 ins[edge.dst_port] = spec
             rates = {s.rate for s in ins.values()}
-            if len(rates) > 1:
+            if len(rates) > 1 and not type(block).mixed_rates:
                 listing = ", ".join(f"{p} at {s.rate:g}" for p, s in ins.items())
                 raise PipelineError(key, f"rate mismatch between inputs: {listing} samples/s")
             try:

@@ -28,7 +28,8 @@ __all__ = ["Inlet", "LinkCounters", "LinkStatistics", "Outlet", "open_link"]
 
 log = logging.getLogger("phasefree.link")
 
-_POLL_MS = 50
+#: Longest a link's send or receive waits inside libzmq before it looks at the abort flag again.
+_WAIT_MS = 50
 
 
 @dataclass(frozen=True)
@@ -142,19 +143,22 @@ class Outlet:
             log.debug("end of stream not delivered on %s", self.counters.label)
 
     def _send_waiting(self, parts: list, timeout_s: float | None = None) -> None:
+        # A link's socket waits inside libzmq, with the GIL released, for at most _WAIT_MS
+        # (its send timeout) per try, so a full link costs no exception per chunk and an abort
+        # is still seen within _WAIT_MS. XPUB reports itself writable even when XPUB_NODROP
+        # refuses, and blocks for ever without a timeout, so a tap tries and waits by time.
+        tap = self.counters.tap
         deadline = None if timeout_s is None else time.monotonic() + timeout_s
         while True:
             try:
-                self.sock.send_multipart(parts, flags=zmq.NOBLOCK, copy=False)
+                waiting = not (tap or self.abort.is_set())
+                self.sock.send_multipart(parts, flags=0 if waiting else zmq.NOBLOCK, copy=False)
                 return
             except zmq.Again:
                 if self.abort.is_set() or (deadline is not None and time.monotonic() > deadline):
                     raise LinkClosed(self.counters.label) from None
-                # XPUB reports itself writable even when XPUB_NODROP refuses, so wait by time
-                if self.counters.tap:
-                    time.sleep(_POLL_MS / 10000)
-                else:
-                    self.sock.poll(_POLL_MS, zmq.POLLOUT)
+                if tap:
+                    time.sleep(_WAIT_MS / 10000)
 
     def close(self) -> None:
         """Close the socket without lingering."""
@@ -171,17 +175,21 @@ class Inlet:
         self.expected = 0
         self.ended = False
 
-    def receive(self) -> frame.Message | None:
-        """Read one waiting message (the caller polled the socket first).
+    def receive(self, wait: bool = False) -> frame.Message | None:
+        """Read one message: one already waiting, or with ``wait``, the next within ~50 ms.
 
-        Returns None when nothing valid was waiting: a rejected frame is counted and logged.
+        Without ``wait`` the caller polled the socket first. With ``wait`` the inlet waits
+        inside libzmq (the GIL released) for at most its receive timeout, so a caller looping
+        on it sees an abort within that time.
+
+        Returns None when nothing valid arrived: a rejected frame is counted and logged.
         """
         try:
-            parts = self.sock.recv_multipart(flags=zmq.NOBLOCK, copy=False)
+            parts = self.sock.recv_multipart(flags=0 if wait else zmq.NOBLOCK, copy=False)
         except zmq.Again:
             return None
         try:
-            msg = frame.decode(parts)
+            msg = frame.decode(parts, self.port)
         except frame.FrameError as err:
             self.counters.rejected += 1
             log.warning("link %s: rejected frame: %s", self.counters.label, err)
@@ -191,11 +199,7 @@ class Inlet:
         self.expected = msg.seq + 1
         if msg.kind is frame.MessageKind.DATA:
             self.counters.received += 1
-            assert msg.chunk is not None
-            return frame.Message(msg.kind, msg.seq, msg.start,
-                                 Chunk(msg.chunk.samples, msg.chunk.start, msg.chunk.rate,
-                                       msg.chunk.annotations, self.port))
-        if msg.kind is frame.MessageKind.END:
+        elif msg.kind is frame.MessageKind.END:
             self.counters.received += 1
             self.ended = True
         return msg
@@ -226,6 +230,9 @@ def open_link(ctx: zmq.Context, address: str, counters: LinkCounters, port: str,
         rx.setsockopt(zmq.RCVHWM, depth)
     for sock in (tx, rx):
         sock.setsockopt(zmq.LINGER, 0)
+    rx.setsockopt(zmq.RCVTIMEO, _WAIT_MS)
+    if not counters.tap:
+        tx.setsockopt(zmq.SNDTIMEO, _WAIT_MS)
     # the publishing side binds: a subscription made before the publisher connects is not
     # forwarded to it on inproc (seen with libzmq 4.3), so taps always bind the XPUB end
     binder, connector = (tx, rx) if counters.tap else (rx, tx)

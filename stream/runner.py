@@ -23,7 +23,7 @@ from threadpoolctl import threadpool_limits
 from stream.block import Block, Source
 from stream.crossing import NetworkEnds
 from stream.errors import BlockFailed, LinkClosed
-from stream.frame import MessageKind
+from stream.frame import Message, MessageKind
 from stream.graph import Pipeline
 from stream.link import Inlet, LinkCounters, Outlet, open_link
 from stream.parts import PartPlan
@@ -232,28 +232,46 @@ class Runner:
 
     def _block_loop(self, block: Block, inlets: list[Inlet],
                     outlets: list[tuple[str, Outlet]]) -> None:
+        try:
+            if len(inlets) == 1:
+                self._one_inlet(block, inlets[0], outlets)
+            else:
+                self._many_inlets(block, inlets, outlets)
+        finally:
+            self._end(block, outlets)
+
+    def _take(self, block: Block, msg: Message | None,
+              outlets: list[tuple[str, Outlet]]) -> bool:
+        """Hand a received message to the block; True if it ended its inlet's stream."""
+        if msg is None:
+            return False
+        if msg.kind is MessageKind.DATA:
+            block.deliver(msg.chunk)
+            self._forward(block, outlets)
+            self._refresh(block)
+            return False
+        return msg.kind is MessageKind.END
+
+    def _one_inlet(self, block: Block, inlet: Inlet, outlets: list[tuple[str, Outlet]]) -> None:
+        # the common case: wait inside the receive itself (its timeout bounds how late an
+        # abort is seen), one call per chunk instead of a poll and a receive
+        while not self.aborting.is_set():
+            if self._take(block, inlet.receive(wait=True), outlets):
+                return
+
+    def _many_inlets(self, block: Block, inlets: list[Inlet],
+                     outlets: list[tuple[str, Outlet]]) -> None:
         poller = zmq.Poller()
         by_socket = {}
         for inlet in inlets:
             poller.register(inlet.sock, zmq.POLLIN)
             by_socket[inlet.sock] = inlet
         open_inlets = len(inlets)
-        try:
-            while open_inlets and not self.aborting.is_set():
-                for sock, _ in poller.poll(50):
-                    inlet = by_socket[sock]
-                    msg = inlet.receive()
-                    if msg is None:
-                        continue
-                    if msg.kind is MessageKind.DATA:
-                        block.deliver(msg.chunk)
-                        self._forward(block, outlets)
-                        self._refresh(block)
-                    elif msg.kind is MessageKind.END:
-                        poller.unregister(sock)
-                        open_inlets -= 1
-        finally:
-            self._end(block, outlets)
+        while open_inlets and not self.aborting.is_set():
+            for sock, _ in poller.poll(50):
+                if self._take(block, by_socket[sock].receive(), outlets):
+                    poller.unregister(sock)
+                    open_inlets -= 1
 
     def _refresh(self, block: Block, force: bool = False) -> None:
         now = time.monotonic()

@@ -394,10 +394,10 @@ def time_link(ctx: zmq.Context, address: str, chunk: Chunk, messages: int) -> fl
     got = [0]
 
     def receive() -> None:
-        while True:
-            if not inlet.sock.poll(5000):
-                return
-            msg = inlet.receive()
+        # as the runner reads a block's single inlet: wait inside the receive itself
+        deadline = time.monotonic() + 5.0
+        while time.monotonic() < deadline:
+            msg = inlet.receive(wait=True)
             if msg is None:
                 continue
             if msg.kind is frame.MessageKind.END:
