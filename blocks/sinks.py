@@ -90,11 +90,6 @@ class Record(Block):
         Param("overwrite", bool, True, doc="replace an existing recording"),
     )
 
-    @classmethod
-    def port(cls, side: str, name: str | None) -> Port:
-        """As :meth:`Block.port`; a link that names no input enters the samples port ``in``."""
-        return super().port(side, "in" if side == "in" and name is None else name)
-
     def setup(self, inputs: dict[str, StreamSpec]) -> dict[str, StreamSpec]:
         spec = inputs["in"]
         is_complex = spec.dtype == "complex64"

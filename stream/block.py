@@ -127,7 +127,9 @@ class Block:
 
     @classmethod
     def port(cls, side: str, name: str | None) -> Port:
-        """Find a port by side (``"in"`` or ``"out"``) and name; None picks the only one.
+        """Find a port by side (``"in"`` or ``"out"``) and name.
+
+        None picks the only port, or on the input side the only one that is not optional.
 
         Raises
         ------
@@ -139,6 +141,9 @@ class Block:
         if name is None:
             if len(ports) == 1:
                 return ports[0]
+            required = [p for p in ports if not p.optional]
+            if side == "in" and len(required) == 1:
+                return required[0]  # the optional inputs must be named
             if not ports:
                 raise KeyError(f"kind {cls.kind!r} has no {word} port")
             names = ", ".join(p.name for p in ports)
