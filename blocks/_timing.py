@@ -186,10 +186,11 @@ def cubic_interpolate(x: np.ndarray, positions: np.ndarray) -> np.ndarray:
     Notes
     -----
     The third-order Lagrange interpolator through the samples at ``m - 1, m, m + 1, m + 2``
-    evaluated at ``m + mu`` ``(0 <= mu < 1)``, in the Farrow structure of [1]_ (cubic
-    Lagrange interpolator; cited from memory, no equation number): a polynomial in ``mu``
-    whose coefficients are fixed FIR combinations of the four samples, evaluated by Horner's
-    rule. The coefficients follow from the Lagrange basis polynomials through -1, 0, 1, 2.
+    evaluated at ``m + mu`` ``(0 <= mu < 1)``, the cubic Lagrange interpolator of [1]_ (cited
+    from memory, no equation number): the four samples weighted by the Lagrange basis
+    polynomials through -1, 0, 1, 2 evaluated at ``mu``. The same cubic can be written in the
+    Farrow structure of [1]_; the weighted form gives the same values to float32 rounding
+    and needs only real arithmetic on ``mu`` and four real-by-complex products.
 
     References
     ----------
@@ -197,22 +198,33 @@ def cubic_interpolate(x: np.ndarray, positions: np.ndarray) -> np.ndarray:
        Implementation and performance", IEEE Trans. Commun. 41(6), 998-1008, 1993.
     """
     p = np.asarray(positions, dtype=np.float64)
-    base = np.floor(p).astype(np.int64)
+    base = p.astype(np.int64)  # truncation: floor for the valid positions (>= 1)
     mu = (p - base).astype(np.float32)
     if base.shape[0] and (base.min() < 1 or base.max() > x.shape[0] - 3):
         raise ValueError("positions must lie in 1 .. len(x) - 3")
-    # Real and imaginary parts as columns: every step below is real arithmetic per component,
-    # which is what complex arithmetic with a real factor does, at half the work.
-    x = np.ascontiguousarray(x)
-    parts = x.view(x.real.dtype).reshape(x.shape[0], -1)
-    xm1, x0, x1, x2 = (np.take(parts, base + k, axis=0) for k in (-1, 0, 1, 2))
-    mu = mu[:, None]
-    # Farrow coefficients of the cubic Lagrange interpolator (Horner form in mu).
-    c3 = (x2 - xm1) / 6 + (x0 - x1) / 2
-    c2 = (xm1 + x1) / 2 - x0
-    c1 = x1 - x2 / 6 - x0 / 2 - xm1 / 3
-    y = ((c3 * mu + c2) * mu + c1) * mu + x0
-    return y.astype(parts.dtype, copy=False).view(x.dtype).reshape(p.shape[0])
+    weights = _lagrange_weights(mu.ravel().astype(x.real.dtype, copy=False))
+    index = base.ravel() - 1
+    y = np.take(x, index)
+    y *= weights[0]
+    for w in weights[1:]:
+        index += 1
+        term = np.take(x, index)
+        term *= w
+        y += term
+    return y.reshape(p.shape)
+
+
+def _lagrange_weights(mu: np.ndarray) -> np.ndarray:
+    """Cubic Lagrange basis through -1, 0, 1, 2 at ``mu``: shape (4, len(mu)), mu's dtype."""
+    below, above, after = mu - 1, mu - 2, mu + 1
+    pair_a, pair_b = mu * below, after * above
+    w = np.empty((4, mu.shape[0]), dtype=mu.dtype)
+    np.multiply(pair_a, above, out=w[0])
+    np.multiply(pair_b, below, out=w[1])
+    np.multiply(pair_b, mu, out=w[2])
+    np.multiply(pair_a, after, out=w[3])
+    w *= np.array([-1 / 6, 1 / 2, -1 / 2, 1 / 6], dtype=mu.dtype)[:, None]
+    return w
 
 
 @dataclass(frozen=True)

@@ -186,6 +186,10 @@ class Timing(Block):
         self._seg_start = 1.0 - float(self._offsets[0])
         self._seg_theta: float | None = None
         self._next_symbol: int | None = None
+        # Strobe instants of the segments found in this call, interpolated together by _flush;
+        # input before _keep_from (absolute) is no longer needed after that.
+        self._when: list[np.ndarray] = []
+        self._keep_from = 0
         self._symbols = 0
         self._notes = PendingNotes()
         return {"out": StreamSpec("complex64", rs * s_out)}
@@ -209,6 +213,7 @@ class Timing(Block):
         for i, line in enumerate(sums):
             centre = (first_window + i) * self._window + (self._window - 1) / 2.0
             self._add_knot(centre, float(timing_phase(line)))
+        self._flush()
 
     def finish(self) -> None:
         """Use the incomplete last window, then strobe up to the end of the input."""
@@ -222,6 +227,7 @@ class Timing(Block):
             last = self._buf_start + self._buf.shape[0] - 3 - float(self._offsets[-1])
             if last > self._seg_start:
                 self._strobe(last, self._knots[-1][1])
+        self._flush()
         self.emit(np.zeros(0, np.complex64), annotations=self._notes.rest(self.position()))
 
     def _add_knot(self, centre: float, theta: float) -> None:
@@ -233,7 +239,7 @@ class Timing(Block):
             self._strobe(centre, theta)
 
     def _strobe(self, end: float, theta_end: float) -> None:
-        """Emit the symbols whose strobes lie between the segment start and ``end``."""
+        """Schedule the symbols whose strobes lie between the segment start and ``end``."""
         theta_start = theta_end if self._seg_theta is None else self._seg_theta
         first, instants = segment_strobes(self._seg_start, end, theta_start, theta_end,
                                           self._sps)
@@ -244,14 +250,21 @@ class Timing(Block):
         self._seg_start, self._seg_theta = end, theta_end
         if not instants.shape[0]:
             return
-        when = (instants[:, None] + self._offsets[None, :]).reshape(-1)
-        y = cubic_interpolate(self._buf, when - self._buf_start)
-        due = self._notes.due(math.floor(when[-1]) + 1)
-        start = self.position()
-        notes = tuple(a.moved(start + int(np.searchsorted(when, a.index))) for a in due)
-        self.emit(y, annotations=notes)
+        self._when.append((instants[:, None] + self._offsets[None, :]).reshape(-1))
         self._symbols += instants.shape[0]
-        keep_from = math.floor(end + self._offsets[0]) - 2 - self._buf_start
+        self._keep_from = math.floor(end + self._offsets[0]) - 2
+
+    def _flush(self) -> None:
+        """Interpolate and emit the scheduled strobes in one go, then drop input done with."""
+        if self._when:
+            when = np.concatenate(self._when)
+            self._when = []
+            y = cubic_interpolate(self._buf, when - self._buf_start)
+            due = self._notes.due(math.floor(when[-1]) + 1)
+            start = self.position()
+            notes = tuple(a.moved(start + int(np.searchsorted(when, a.index))) for a in due)
+            self.emit(y, annotations=notes)
+        keep_from = self._keep_from - self._buf_start
         if keep_from > 0:
             self._buf = self._buf[keep_from:]
             self._buf_start += keep_from

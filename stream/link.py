@@ -98,7 +98,7 @@ class Outlet:
         """
         parts = frame.encode(chunk, self.seq)
         self.seq += 1
-        self.position = chunk.stop
+        self.position = chunk.start + chunk.samples.shape[0]
         if self.counters.tap:
             try:
                 self.sock.send_multipart(parts, flags=zmq.NOBLOCK, copy=False)
