@@ -33,6 +33,7 @@ from blocks._pulses import (
     _check_span,
     gaussian_phase_pulse,
     rrc_pulse,
+    rrc_pulse_grid,
 )
 
 __all__ = [
@@ -216,12 +217,13 @@ def _rrc_energy(span: int, rolloff: float) -> float:
 def _pulse_weights(modulation: str, pulse: str, memory: int, rolloff: float, bt: float,
                    phase: np.ndarray, scale: float) -> np.ndarray:
     """Causal pulse (or running phase pulse) at ``phase + j``, ``j = 0 .. memory - 1`` (rows)."""
+    centre = memory / 2.0
+    if pulse == "rrc":
+        return rrc_pulse_grid(phase, np.arange(memory, dtype=np.float64) - centre,
+                              rolloff) * scale
     tau = phase[None, :] + np.arange(memory, dtype=np.float64)[:, None]
     if pulse == "rect":
         return tau if modulation == "2fsk" else np.ones_like(tau)
-    centre = memory / 2.0
-    if pulse == "rrc":
-        return rrc_pulse(tau - centre, rolloff) * scale
     lo, hi = gaussian_phase_pulse(np.array([-centre, centre]), bt)
     return (gaussian_phase_pulse(tau - centre, bt) - lo) / (hi - lo)
 

@@ -29,7 +29,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.special import expit, i0e, i1e
 
-from blocks._energy_detect import estimate_levels, ook_llr, two_level_split
+from blocks._energy_detect import estimate_levels, two_level_split
 
 __all__ = [
     "OokFit",
@@ -218,9 +218,12 @@ def ook_level_fit(z: np.ndarray, start: OokFit | None = None, on_fraction: float
     while done < iterations:
         done += 1
         a = math.sqrt(signal)
-        w = expit(ook_llr(z, signal, noise) + math.log(fraction / (1.0 - fraction)))
+        # kappa is also the Bessel argument of ook_llr: one I0 serves the LLR and the ratio
         kappa = 2.0 * a * root / noise
-        ratio = i1e(kappa) / i0e(kappa)
+        scaled_i0 = i0e(kappa)
+        llr = (np.log(scaled_i0) + kappa) - signal / noise
+        w = expit(llr + math.log(fraction / (1.0 - fraction)))
+        ratio = i1e(kappa) / scaled_i0
         weight = float(w.sum())
         if on_fraction is None:
             fraction = min(max(weight / n, 1e-6), 1.0 - 1e-6)
