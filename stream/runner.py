@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import itertools
 import logging
+import sys
 import threading
 import time
 import traceback
@@ -18,7 +19,7 @@ from collections.abc import Callable
 from typing import Any
 
 import zmq
-from threadpoolctl import threadpool_limits
+from threadpoolctl import ThreadpoolController
 
 from stream.block import Block, Source
 from stream.crossing import NetworkEnds
@@ -34,6 +35,19 @@ log = logging.getLogger("phasefree.runner")
 _run_ids = itertools.count()
 
 StatusHook = Callable[[dict[str, Any]], None]
+
+# Finding the loaded BLAS libraries scans every shared object of the process (milliseconds, a
+# few percent of a short run), so the scan is kept and redone only once modules were imported
+# since, which is how a new native library gets loaded.
+_blas_scan: tuple[int, ThreadpoolController] | None = None
+
+
+def _blas_controller() -> ThreadpoolController:
+    global _blas_scan
+    modules = len(sys.modules)
+    if _blas_scan is None or _blas_scan[0] != modules:
+        _blas_scan = (modules, ThreadpoolController())
+    return _blas_scan[1]
 
 
 class Runner:
@@ -109,7 +123,7 @@ class Runner:
         ctx = zmq.Context()
         # every block has its own thread already: BLAS splitting a small product over more
         # threads only adds contention (measured up to 20x slower on a loaded 2-core machine)
-        blas = threadpool_limits(limits=1, user_api="blas")
+        blas = _blas_controller().limit(limits=1, user_api="blas")
         try:
             self._start(ctx)
             next_status = self._t0 + status_interval

@@ -108,7 +108,7 @@ def test_slow_tap_drops_and_counts_and_never_holds_up_the_chain(tmp_path):
 
     def release_when_chain_ended(status: dict[str, Any]) -> None:
         # the observer is stuck on its first chunk until the whole lossless chain has ended
-        if status["blocks"]["probe"]["finished"]:
+        if status["blocks"]["probe"].get("finished"):
             gate.set()
 
     summary = Runner(pipe, queue_depth=2).run(seconds=LIMIT_S,
