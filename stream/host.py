@@ -1,4 +1,4 @@
-"""Figures of the machine a pipeline runs on: CPU load, temperature, throttling.
+"""Figures of the machine a pipeline runs on: CPU load, temperature, slowdown.
 
 A receiver left on a small board in a shed fails in ways the DSP cannot see: the board gets hot
 and slows its clock, the supply sags, another program eats the CPU. These figures sit beside the
@@ -13,10 +13,10 @@ Sources of each figure (Linux):
   time already counted in user (proc(5), Linux man-pages); idle time is idle + iowait;
 - temperatures: ``/sys/class/thermal/thermal_zone*/temp`` in millidegrees Celsius, named by the
   zone's ``type`` file (Linux kernel documentation, ``Documentation/driver-api/thermal``);
-- throttling (Raspberry Pi boards): the firmware's ``get_throttled`` word, read from
+- slowdown (Raspberry Pi boards): the firmware's ``get_throttled`` word, read from
   ``/sys/devices/platform/soc/soc:firmware/get_throttled`` (hexadecimal; from memory of the
   kernel's Raspberry Pi firmware driver) or ``vcgencmd get_throttled``; its bit meanings are in
-  :data:`THROTTLE_BITS` (Raspberry Pi documentation, "get_throttled" under ``vcgencmd``).
+  :data:`SLOWDOWN_BITS` (Raspberry Pi documentation, "get_throttled" under ``vcgencmd``).
 """
 
 from __future__ import annotations
@@ -30,23 +30,23 @@ import time
 from pathlib import Path
 from typing import Any
 
-__all__ = ["THROTTLE_BITS", "HostProbe", "cpu_busy_fraction", "decode_throttled",
+__all__ = ["SLOWDOWN_BITS", "HostProbe", "cpu_busy_fraction", "decode_slowdown",
            "read_cpu_ticks"]
 
-#: Bit of the firmware's throttle word -> name (Raspberry Pi documentation, ``vcgencmd
+#: Bit of the firmware's slowdown word -> name (Raspberry Pi documentation, ``vcgencmd
 #: get_throttled``: bits 0-3 are the state now, bits 16-19 the same conditions since boot).
-THROTTLE_BITS = {
+SLOWDOWN_BITS = {
     0: "under_voltage",
     1: "frequency_capped",
-    2: "throttled",
+    2: "slowed",
     3: "soft_temperature_limit",
     16: "under_voltage_since_boot",
     17: "frequency_capped_since_boot",
-    18: "throttled_since_boot",
+    18: "slowed_since_boot",
     19: "soft_temperature_limit_since_boot",
 }
 
-_FIRMWARE_THROTTLE = "sys/devices/platform/soc/soc:firmware/get_throttled"
+_FIRMWARE_SLOWDOWN = "sys/devices/platform/soc/soc:firmware/get_throttled"
 _CPU_MIN_INTERVAL_S = 0.5   # shorter windows give a jumpy busy fraction; reuse the last one
 _VCGENCMD_EVERY_S = 5.0     # the command costs a process start; its answer changes slowly
 
@@ -86,13 +86,13 @@ def cpu_busy_fraction(before: tuple[int, int], after: tuple[int, int]) -> float 
     return min(1.0, max(0.0, 1.0 - (after[1] - before[1]) / total))
 
 
-def decode_throttled(word: int) -> dict[str, bool]:
-    """The firmware's throttle word as named flags (see :data:`THROTTLE_BITS`)."""
-    return {name: bool(word >> bit & 1) for bit, name in THROTTLE_BITS.items()}
+def decode_slowdown(word: int) -> dict[str, bool]:
+    """The firmware's slowdown word as named flags (see :data:`SLOWDOWN_BITS`)."""
+    return {name: bool(word >> bit & 1) for bit, name in SLOWDOWN_BITS.items()}
 
 
-def _parse_throttle_text(text: str) -> int | None:
-    """``throttled=0x50005`` (vcgencmd) or ``50005`` (sysfs, hex) -> the word."""
+def _parse_slowdown_text(text: str) -> int | None:
+    """``NAME=0x50005`` (vcgencmd; the name is ignored) or ``50005`` (sysfs, hex) -> the word."""
     value = text.strip().rpartition("=")[2].strip()
     try:
         return int(value, 16)
@@ -109,7 +109,7 @@ class HostProbe:
         The file system root the ``/proc`` and ``/sys`` files are read under (tests point it
         at a prepared tree).
     vcgencmd : bool
-        Ask ``vcgencmd`` for the throttle word when the firmware file is missing.
+        Ask ``vcgencmd`` for the slowdown word when the firmware file is missing.
 
     Notes
     -----
@@ -123,7 +123,7 @@ class HostProbe:
         self._lock = threading.Lock()
         self._cpu_sample: tuple[float, tuple[int, int]] | None = None
         self._cpu_busy: float | None = None
-        self._throttle_cache: tuple[float, int | None] | None = None
+        self._slowdown_cache: tuple[float, int | None] | None = None
 
     def read(self) -> dict[str, Any]:
         """The figures this host reports now; absent ones are left out.
@@ -133,7 +133,7 @@ class HostProbe:
         dict
             Any of ``cpus``, ``load_1m``, ``load_5m``, ``load_15m``, ``cpu_busy`` (0..1 since
             the previous read, at least 0.5 s apart; left out on the very first read),
-            ``temperatures_c`` ({zone name: degrees C}), ``throttle`` (``{"word": int, flag:
+            ``temperatures_c`` ({zone name: degrees C}), ``slowdown`` (``{"word": int, flag:
             bool, ...}``).
         """
         out: dict[str, Any] = {}
@@ -148,9 +148,9 @@ class HostProbe:
         temps = self.temperatures()
         if temps:
             out["temperatures_c"] = temps
-        word = self.throttle_word()
+        word = self.slowdown_word()
         if word is not None:
-            out["throttle"] = {"word": word, **decode_throttled(word)}
+            out["slowdown"] = {"word": word, **decode_slowdown(word)}
         return out
 
     def _busy(self) -> float | None:
@@ -190,25 +190,25 @@ class HostProbe:
             out[name] = milli / 1000.0
         return out
 
-    def throttle_word(self) -> int | None:
-        """The firmware's throttle word, or None where the board does not report one."""
+    def slowdown_word(self) -> int | None:
+        """The firmware's slowdown word, or None where the board does not report one."""
         try:
-            return _parse_throttle_text((self.root / _FIRMWARE_THROTTLE).read_text())
+            return _parse_slowdown_text((self.root / _FIRMWARE_SLOWDOWN).read_text())
         except OSError:
             pass
         if self._vcgencmd is None:
             return None
         now = time.monotonic()
         with self._lock:
-            if self._throttle_cache is not None and now - self._throttle_cache[0] < \
+            if self._slowdown_cache is not None and now - self._slowdown_cache[0] < \
                     _VCGENCMD_EVERY_S:
-                return self._throttle_cache[1]
+                return self._slowdown_cache[1]
         try:
             done = subprocess.run([self._vcgencmd, "get_throttled"], capture_output=True,
                                   text=True, timeout=2.0, check=False)
-            word = _parse_throttle_text(done.stdout) if done.returncode == 0 else None
+            word = _parse_slowdown_text(done.stdout) if done.returncode == 0 else None
         except (OSError, subprocess.TimeoutExpired):
             word = None
         with self._lock:
-            self._throttle_cache = (now, word)
+            self._slowdown_cache = (now, word)
         return word

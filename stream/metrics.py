@@ -39,7 +39,7 @@ name                                       type       labels, meaning
 ``phasefree_host_load_average``            gauge      window (1m, 5m, 15m); run-queue average
 ``phasefree_host_cpu_busy_ratio``          gauge      fraction of CPU time not idle
 ``phasefree_host_temperature_celsius``     gauge      zone; thermal zone temperature
-``phasefree_host_throttle``                gauge      condition; 1 while the board reports it
+``phasefree_host_slowdown``                gauge      condition; 1 while the board reports it
 ``phasefree_process_...``                  various    the library's process collector (resident
                                                       memory, open file descriptors, CPU time)
 =========================================  =========  ==========================================
@@ -208,11 +208,11 @@ def _host_metrics(host: dict[str, Any]) -> Iterator[Metric]:
         for zone, value in host["temperatures_c"].items():
             temp.add_metric([zone], float(value))
         yield temp
-    if "throttle" in host:
-        flags = GaugeMetricFamily(_PREFIX + "host_throttle",
+    if "slowdown" in host:
+        flags = GaugeMetricFamily(_PREFIX + "host_slowdown",
                                   "1 while the board reports the condition (firmware word)",
                                   labels=["condition"])
-        for name, value in host["throttle"].items():
+        for name, value in host["slowdown"].items():
             if name != "word":
                 flags.add_metric([name], float(value))
         yield flags

@@ -105,9 +105,9 @@ def _headline(status: dict[str, Any]) -> str:
         parts.append(f"load {host['load_1m']:.2f}")
     if host.get("temperatures_c"):
         parts.append(f"{max(host['temperatures_c'].values()):.0f} °C")
-    if any(v for k, v in (host.get("throttle") or {}).items()
-           if k in ("under_voltage", "throttled", "frequency_capped")):
-        parts.append("board throttled")
+    if any(v for k, v in (host.get("slowdown") or {}).items()
+           if k in ("under_voltage", "slowed", "frequency_capped")):
+        parts.append("board slowed")
     return "  |  ".join(parts)
 
 

@@ -3,7 +3,7 @@
 Checks, in order: the SoapySDR Python module (and, when Debian's copy is installed but unseen,
 how to reach it), SoapySDR hardware modules, devices that enumerate and open, USB receivers on
 the bus and the permission to use them (udev rules), a kernel TV-tuner driver holding an
-RTL2832U dongle, the USB buffer memory limit, and CPU temperature, throttling and under-voltage
+RTL2832U dongle, the USB buffer memory limit, and CPU temperature, slowdown and under-voltage
 on boards that report them. Each finding is ``ok``, ``note``, ``warn`` or ``fail``; the command
 exits 1 only for a ``fail`` (no radio attached is a ``warn``: the fallback source covers it).
 
@@ -33,8 +33,8 @@ from blocks.radio import (
 )
 
 __all__ = ["HELP", "Finding", "add_arguments", "board_health", "check_kernel_driver",
-           "check_throttle", "check_usb_access", "check_usbfs", "main", "run_checks",
-           "throttle_flags"]
+           "check_slowdown", "check_usb_access", "check_usbfs", "main", "run_checks",
+           "slowdown_flags"]
 
 HELP = "check the radio setup (SoapySDR, drivers, permissions, USB, power) and print the fixes"
 
@@ -47,14 +47,14 @@ SDR_USB_IDS = {
 }
 #: Kernel DVB-T drivers that claim RTL2832U dongles before librtlsdr can.
 TV_TUNER_MODULES = ("dvb_usb_rtl28xxu", "rtl2832_sdr", "rtl2832", "rtl2830")
-#: Bits of the Raspberry Pi firmware's throttle word (Raspberry Pi documentation,
+#: Bits of the Raspberry Pi firmware's slowdown word (Raspberry Pi documentation,
 #: "vcgencmd get_throttled").
-_THROTTLE_BITS = {0: "under-voltage now", 1: "ARM frequency capped now",
-                  2: "throttled now", 3: "soft temperature limit now",
+_SLOWDOWN_BITS = {0: "under-voltage now", 1: "ARM frequency capped now",
+                  2: "slowed now", 3: "soft temperature limit now",
                   16: "under-voltage since boot", 17: "frequency capped since boot",
-                  18: "throttled since boot", 19: "soft temperature limit since boot"}
+                  18: "slowed since boot", 19: "soft temperature limit since boot"}
 _NOW_BITS = 0xF
-#: CPU temperature from which boards throttle (Raspberry Pi: 80 degC soft limit, from memory).
+#: CPU temperature from which boards slowdown (Raspberry Pi: 80 degC soft limit, from memory).
 HOT_C = 80.0
 
 _UDEV_FIX = ("allow your user the device: a udev rule such as /etc/udev/rules.d/"
@@ -243,12 +243,12 @@ def check_usbfs(path: Path = Path("/sys/module/usbcore/parameters/usbfs_memory_m
 
 
 # -- the board ---------------------------------------------------------------------------------
-def throttle_flags(word: int) -> list[str]:
-    """The Raspberry Pi throttle word in words (bits per the Raspberry Pi documentation)."""
-    return [text for bit, text in _THROTTLE_BITS.items() if word >> bit & 1]
+def slowdown_flags(word: int) -> list[str]:
+    """The Raspberry Pi slowdown word in words (bits per the Raspberry Pi documentation)."""
+    return [text for bit, text in _SLOWDOWN_BITS.items() if word >> bit & 1]
 
 
-def _throttle_word(firmware: Path, run: Callable[[list[str]], str | None]) -> int | None:
+def _slowdown_word(firmware: Path, run: Callable[[list[str]], str | None]) -> int | None:
     text = _read(firmware)
     if text is not None:
         try:
@@ -256,7 +256,7 @@ def _throttle_word(firmware: Path, run: Callable[[list[str]], str | None]) -> in
         except ValueError:
             return None
     out = run(["vcgencmd", "get_throttled"]) if shutil.which("vcgencmd") else None
-    match = re.search(r"throttled=(0x[0-9a-fA-F]+)", out or "")
+    match = re.search(r"=\s*(0x[0-9a-fA-F]+)", out or "")  # NAME=0xWORD, name ignored
     return int(match[1], 16) if match else None
 
 
@@ -284,25 +284,25 @@ def _under_voltage_alarm(hwmon: Path) -> bool | None:
     return None
 
 
-def check_throttle(firmware: Path = Path("/sys/devices/platform/soc/soc:firmware/get_throttled"),
+def check_slowdown(firmware: Path = Path("/sys/devices/platform/soc/soc:firmware/get_throttled"),
                    thermal: Path = Path("/sys/class/thermal"),
                    hwmon: Path = Path("/sys/class/hwmon"),
                    run: Callable[[list[str]], str | None] = _run_quietly) -> list[Finding]:
-    """Temperature, throttling and under-voltage, where the board reports them."""
+    """Temperature, slowdown and under-voltage, where the board reports them."""
     out = []
     power_fix = ("use a supply that holds its voltage under load (Raspberry Pi: the official "
                  "one), a short thick cable, and a powered hub for the receiver")
-    word = _throttle_word(firmware, run)
+    word = _slowdown_word(firmware, run)
     if word is not None:
-        flags = throttle_flags(word)
+        flags = slowdown_flags(word)
         if word & _NOW_BITS:
-            out.append(Finding("throttle", "fail", f"throttle word {word:#x}: "
+            out.append(Finding("slowdown", "fail", f"slowdown word {word:#x}: "
                                f"{', '.join(flags)}", power_fix + "; cool the board"))
         elif flags:
-            out.append(Finding("throttle", "warn", f"throttle word {word:#x}: "
+            out.append(Finding("slowdown", "warn", f"slowdown word {word:#x}: "
                                f"{', '.join(flags)}", power_fix))
         else:
-            out.append(Finding("throttle", "ok", "no throttling or under-voltage since boot"))
+            out.append(Finding("slowdown", "ok", "no slowdown or under-voltage since boot"))
     alarm = _under_voltage_alarm(hwmon)
     if alarm:
         out.append(Finding("under-voltage", "fail", "the board reports under-voltage now",
@@ -312,10 +312,10 @@ def check_throttle(firmware: Path = Path("/sys/devices/platform/soc/soc:firmware
         hottest = max(temps)
         status = "warn" if hottest >= HOT_C else "ok"
         out.append(Finding("temperature", status, f"CPU {hottest:.1f} degC",
-                           "add a heatsink or airflow; a throttled CPU drops samples"
+                           "add a heatsink or airflow; a slowed CPU drops samples"
                            if status == "warn" else ""))
     if not out:
-        out.append(Finding("throttle", "note", "this machine reports no throttling, "
+        out.append(Finding("slowdown", "note", "this machine reports no slowdown, "
                            "under-voltage or temperature"))
     return out
 
@@ -324,7 +324,7 @@ def board_health(firmware: Path = Path("/sys/devices/platform/soc/soc:firmware/g
                  thermal: Path = Path("/sys/class/thermal"),
                  run: Callable[[list[str]], str | None] = _run_quietly,
                  ) -> dict[str, float | str]:
-    """CPU load per core, hottest CPU temperature and throttle state, where reported.
+    """CPU load per core, hottest CPU temperature and slowdown state, where reported.
 
     For status records: keys appear only when the machine reports them.
     """
@@ -334,9 +334,9 @@ def board_health(firmware: Path = Path("/sys/devices/platform/soc/soc:firmware/g
     temps = _temperatures(thermal)
     if temps:
         out["temperature_c"] = round(max(temps), 1)
-    word = _throttle_word(firmware, run)
+    word = _slowdown_word(firmware, run)
     if word is not None:
-        out["throttled"] = ", ".join(throttle_flags(word)) or "no"
+        out["slowed"] = ", ".join(slowdown_flags(word)) or "no"
     return out
 
 
@@ -351,7 +351,7 @@ def run_checks(driver: str = "") -> list[Finding]:
     findings += check_usb_access()
     findings += check_kernel_driver()
     findings += check_usbfs()
-    findings += check_throttle()
+    findings += check_slowdown()
     return findings
 
 

@@ -2,7 +2,7 @@
 
 The readers run against made-up ``/sys`` and ``/proc`` trees in a temporary folder, laid out as
 the Linux kernel documents them (Documentation/ABI/testing/sysfs-bus-usb: idVendor, idProduct,
-busnum, devnum; /proc/modules one module per line, name first). The throttle word's bits are
+busnum, devnum; /proc/modules one module per line, name first). The slowdown word's bits are
 the Raspberry Pi documentation's ("vcgencmd get_throttled"). SoapySDR is replaced by a small
 stand-in module where a test needs it absent or empty; the last test runs the real command.
 """
@@ -159,13 +159,13 @@ def test_usb_buffer_memory(tmp_path, value, status):
         assert "usbfs_memory_mb" in finding.fix
 
 
-def test_throttle_word_bits():
+def test_slowdown_word_bits():
     # Raspberry Pi documentation, vcgencmd get_throttled: 0x50005 = under-voltage and
-    # throttling now (bits 0, 2) and since boot (bits 16, 18)
-    assert doctor.throttle_flags(0x50005) == ["under-voltage now", "throttled now",
+    # slowdown now (bits 0, 2) and since boot (bits 16, 18)
+    assert doctor.slowdown_flags(0x50005) == ["under-voltage now", "slowed now",
                                               "under-voltage since boot",
-                                              "throttled since boot"]
-    assert doctor.throttle_flags(0) == []
+                                              "slowed since boot"]
+    assert doctor.slowdown_flags(0) == []
 
 
 def board(tmp_path: Path, word: str | None, millideg: int | None) -> dict:
@@ -180,16 +180,16 @@ def board(tmp_path: Path, word: str | None, millideg: int | None) -> dict:
     return {"firmware": firmware, "thermal": thermal, "run": lambda command: None}
 
 
-def test_throttle_and_temperature(tmp_path):
-    found = doctor.check_throttle(hwmon=tmp_path / "hwmon", **board(tmp_path, "50005", 85_000))
-    assert [(f.check, f.status) for f in found] == [("throttle", "fail"), ("temperature", "warn")]
+def test_slowdown_and_temperature(tmp_path):
+    found = doctor.check_slowdown(hwmon=tmp_path / "hwmon", **board(tmp_path, "50005", 85_000))
+    assert [(f.check, f.status) for f in found] == [("slowdown", "fail"), ("temperature", "warn")]
     assert "under-voltage now" in found[0].detail and "supply" in found[0].fix
-    found = doctor.check_throttle(hwmon=tmp_path / "h", **board(tmp_path / "b", "50000", 51_000))
-    assert [(f.check, f.status) for f in found] == [("throttle", "warn"), ("temperature", "ok")]
-    found = doctor.check_throttle(hwmon=tmp_path / "h", **board(tmp_path / "c", None, None))
-    assert [(f.check, f.status) for f in found] == [("throttle", "note")]
+    found = doctor.check_slowdown(hwmon=tmp_path / "h", **board(tmp_path / "b", "50000", 51_000))
+    assert [(f.check, f.status) for f in found] == [("slowdown", "warn"), ("temperature", "ok")]
+    found = doctor.check_slowdown(hwmon=tmp_path / "h", **board(tmp_path / "c", None, None))
+    assert [(f.check, f.status) for f in found] == [("slowdown", "note")]
     health = doctor.board_health(**board(tmp_path / "d", "0", 47_500))
-    assert health["temperature_c"] == 47.5 and health["throttled"] == "no"
+    assert health["temperature_c"] == 47.5 and health["slowed"] == "no"
     assert health["cpu_load"] >= 0
 
 
@@ -198,7 +198,7 @@ def test_under_voltage_alarm_from_hwmon(tmp_path):
     sensor.mkdir(parents=True)
     (sensor / "name").write_text("rpi_volt\n")
     (sensor / "in0_lcrit_alarm").write_text("1\n")
-    found = doctor.check_throttle(hwmon=tmp_path / "hwmon", **board(tmp_path, None, None))
+    found = doctor.check_slowdown(hwmon=tmp_path / "hwmon", **board(tmp_path, None, None))
     assert [(f.check, f.status) for f in found] == [("under-voltage", "fail")]
 
 

@@ -6,9 +6,9 @@ References for the expected values:
   (proc(5), Linux man-pages);
 - ``thermal_zone*/temp`` in millidegrees Celsius, ``type`` the zone's name (Linux kernel
   documentation, thermal sysfs interface);
-- the throttle word's bits 0-3 (under-voltage, frequency capped, throttled, soft temperature
+- the slowdown word's bits 0-3 (under-voltage, frequency capped, slowed, soft temperature
   limit now) and 16-19 (the same since boot) (Raspberry Pi documentation, ``vcgencmd
-  get_throttled``); its example value 0x50005 is "under-voltage and throttled now, both also
+  get_throttled``); its example value 0x50005 is "under-voltage and slowed now, both also
   since boot".
 """
 
@@ -19,7 +19,7 @@ from pathlib import Path
 
 import pytest
 
-from stream.host import HostProbe, cpu_busy_fraction, decode_throttled, read_cpu_ticks
+from stream.host import HostProbe, cpu_busy_fraction, decode_slowdown, read_cpu_ticks
 
 STAT_BEFORE = ("cpu  100 20 30 800 50 5 5 0 7 0\n"
                "cpu0 50 10 15 400 25 2 3 0 7 0\n"
@@ -29,7 +29,7 @@ STAT_AFTER = ("cpu  160 20 50 900 70 5 15 0 9 0\n"
 
 
 def _tree(root: Path, zones: dict[str, tuple[str | None, str]] | None = None,
-          stat: str = STAT_BEFORE, throttle: str | None = None) -> Path:
+          stat: str = STAT_BEFORE, slowdown: str | None = None) -> Path:
     (root / "proc").mkdir(parents=True, exist_ok=True)
     (root / "proc/stat").write_text(stat)
     for name, (kind, temp) in (zones or {}).items():
@@ -38,10 +38,10 @@ def _tree(root: Path, zones: dict[str, tuple[str | None, str]] | None = None,
         (zone / "temp").write_text(temp)
         if kind is not None:
             (zone / "type").write_text(kind + "\n")
-    if throttle is not None:
+    if slowdown is not None:
         path = root / "sys/devices/platform/soc/soc:firmware/get_throttled"
         path.parent.mkdir(parents=True)
-        path.write_text(throttle)
+        path.write_text(slowdown)
     return root
 
 
@@ -81,7 +81,7 @@ def test_temperatures_in_celsius_named_by_zone_type(tmp_path):
 
 def test_absent_figures_are_left_out(tmp_path):
     figures = HostProbe(_tree(tmp_path), vcgencmd=False).read()
-    assert "temperatures_c" not in figures and "throttle" not in figures
+    assert "temperatures_c" not in figures and "slowdown" not in figures
     assert figures["cpus"] == os.cpu_count()
     assert set(figures) >= {"load_1m", "load_5m", "load_15m"}
 
@@ -92,29 +92,29 @@ def test_load_average_is_the_kernels(tmp_path):
     assert figures["load_15m"] == pytest.approx(reference[2], abs=0.05)
 
 
-def test_throttle_word_from_the_firmware_file(tmp_path):
-    probe = HostProbe(_tree(tmp_path, throttle="50005\n"), vcgencmd=False)
-    throttle = probe.read()["throttle"]
-    assert throttle["word"] == 0x50005
-    on = {name for name, value in throttle.items() if value is True}
-    assert on == {"under_voltage", "throttled", "under_voltage_since_boot",
-                  "throttled_since_boot"}
+def test_slowdown_word_from_the_firmware_file(tmp_path):
+    probe = HostProbe(_tree(tmp_path, slowdown="50005\n"), vcgencmd=False)
+    slowdown = probe.read()["slowdown"]
+    assert slowdown["word"] == 0x50005
+    on = {name for name, value in slowdown.items() if value is True}
+    assert on == {"under_voltage", "slowed", "under_voltage_since_boot",
+                  "slowed_since_boot"}
 
 
-def test_decode_throttled_bits():
-    assert not any(decode_throttled(0).values())
-    assert decode_throttled(0x8)["soft_temperature_limit"]
-    assert decode_throttled(0x80000)["soft_temperature_limit_since_boot"]
-    assert decode_throttled(0x2) == {**decode_throttled(0), "frequency_capped": True}
+def test_decode_slowdown_bits():
+    assert not any(decode_slowdown(0).values())
+    assert decode_slowdown(0x8)["soft_temperature_limit"]
+    assert decode_slowdown(0x80000)["soft_temperature_limit_since_boot"]
+    assert decode_slowdown(0x2) == {**decode_slowdown(0), "frequency_capped": True}
 
 
-def test_throttle_word_from_vcgencmd(tmp_path, monkeypatch):
+def test_slowdown_word_from_vcgencmd(tmp_path, monkeypatch):
     tool = tmp_path / "bin/vcgencmd"
     tool.parent.mkdir()
-    tool.write_text("#!/bin/sh\n[ \"$1\" = get_throttled ] && echo throttled=0x20002\n")
+    tool.write_text("#!/bin/sh\n[ \"$1\" = get_throttled ] && echo slowed=0x20002\n")
     tool.chmod(0o755)
     monkeypatch.setenv("PATH", str(tool.parent))
     probe = HostProbe(_tree(tmp_path / "root"))
-    assert probe.throttle_word() == 0x20002
+    assert probe.slowdown_word() == 0x20002
     tool.write_text("#!/bin/sh\nexit 1\n")
-    assert probe.throttle_word() == 0x20002                 # cached for a few seconds
+    assert probe.slowdown_word() == 0x20002                 # cached for a few seconds

@@ -50,7 +50,7 @@ STATUS = {
                                     "depth": 3}},
     "host": {"cpus": 4, "load_1m": 0.5, "load_5m": 0.4, "load_15m": 0.3, "cpu_busy": 0.25,
              "temperatures_c": {"cpu-thermal": 51.5},
-             "throttle": {"word": 0x50005, "under_voltage": True, "throttled": True,
+             "slowdown": {"word": 0x50005, "under_voltage": True, "slowed": True,
                           "frequency_capped": False}},
 }
 
@@ -106,8 +106,8 @@ def test_host_figures_are_exposed_and_absent_ones_left_out():
     assert value(parsed, "phasefree_host_load_average", window="15m") == 0.3
     assert value(parsed, "phasefree_host_cpu_busy_ratio") == 0.25
     assert value(parsed, "phasefree_host_temperature_celsius", zone="cpu-thermal") == 51.5
-    assert value(parsed, "phasefree_host_throttle", condition="under_voltage") == 1
-    assert value(parsed, "phasefree_host_throttle", condition="frequency_capped") == 0
+    assert value(parsed, "phasefree_host_slowdown", condition="under_voltage") == 1
+    assert value(parsed, "phasefree_host_slowdown", condition="frequency_capped") == 0
     bare = {**STATUS, "host": {}}
     _, parsed = _exposed(bare)
     assert not any(name.startswith("phasefree_host_") for name in parsed)
@@ -314,5 +314,5 @@ def test_live_view_headline_shows_ber_estimate_packets_and_host():
     assert "BER 1.40e-03 [5.00e-04, 2.90e-03] over 5000 bits" in headline
     assert "Eb/N0 8.7 dB (estimate)" in headline        # the snr meter's, not the source's 9.0
     assert "packets 12, 1 CRC failures" in headline
-    assert "load 0.50" in headline and "52 °C" in headline and "board throttled" in headline
+    assert "load 0.50" in headline and "52 °C" in headline and "board slowed" in headline
     assert any(line.removeprefix("\x1b[2K").startswith("ber ") for line in lines)
