@@ -13,12 +13,10 @@ Readers take their paths as arguments, so tests can point them at a made-up ``/s
 from __future__ import annotations
 
 import argparse
-import contextlib
 import json
 import os
 import re
 import shutil
-import subprocess
 import sys
 from collections.abc import Callable, Iterable
 from dataclasses import asdict, dataclass
@@ -31,8 +29,9 @@ from blocks.radio import (
     find_devices,
     soapysdr_module,
 )
+from stream.host import HostProbe, decode_slowdown
 
-__all__ = ["HELP", "Finding", "add_arguments", "board_health", "check_kernel_driver",
+__all__ = ["HELP", "Finding", "add_arguments", "check_kernel_driver",
            "check_slowdown", "check_usb_access", "check_usbfs", "main", "run_checks",
            "slowdown_flags"]
 
@@ -47,13 +46,7 @@ SDR_USB_IDS = {
 }
 #: Kernel DVB-T drivers that claim RTL2832U dongles before librtlsdr can.
 TV_TUNER_MODULES = ("dvb_usb_rtl28xxu", "rtl2832_sdr", "rtl2832", "rtl2830")
-#: Bits of the Raspberry Pi firmware's slowdown word (Raspberry Pi documentation,
-#: "vcgencmd get_throttled").
-_SLOWDOWN_BITS = {0: "under-voltage now", 1: "ARM frequency capped now",
-                  2: "slowed now", 3: "soft temperature limit now",
-                  16: "under-voltage since boot", 17: "frequency capped since boot",
-                  18: "slowed since boot", 19: "soft temperature limit since boot"}
-_NOW_BITS = 0xF
+_NOW_BITS = 0xF  # bits 0-3 of the slowdown word: the conditions now (stream.host)
 #: CPU temperature from which boards slowdown (Raspberry Pi: 80 degC soft limit, from memory).
 HOT_C = 80.0
 
@@ -244,37 +237,14 @@ def check_usbfs(path: Path = Path("/sys/module/usbcore/parameters/usbfs_memory_m
 
 # -- the board ---------------------------------------------------------------------------------
 def slowdown_flags(word: int) -> list[str]:
-    """The Raspberry Pi slowdown word in words (bits per the Raspberry Pi documentation)."""
-    return [text for bit, text in _SLOWDOWN_BITS.items() if word >> bit & 1]
-
-
-def _slowdown_word(firmware: Path, run: Callable[[list[str]], str | None]) -> int | None:
-    text = _read(firmware)
-    if text is not None:
-        try:
-            return int(text, 16)
-        except ValueError:
-            return None
-    out = run(["vcgencmd", "get_throttled"]) if shutil.which("vcgencmd") else None
-    match = re.search(r"=\s*(0x[0-9a-fA-F]+)", out or "")  # NAME=0xWORD, name ignored
-    return int(match[1], 16) if match else None
-
-
-def _run_quietly(command: list[str]) -> str | None:
-    try:
-        return subprocess.run(command, capture_output=True, text=True, timeout=3,
-                              check=False).stdout
-    except (OSError, subprocess.SubprocessError):
-        return None
-
-
-def _temperatures(thermal: Path) -> list[float]:
-    temps = []
-    for zone in sorted(thermal.glob("thermal_zone*")):
-        text = _read(zone / "temp")
-        if text and text.lstrip("-").isdigit():
-            temps.append(int(text) / 1000.0)
-    return temps
+    """The Raspberry Pi slowdown word in words (bits as :data:`stream.host.SLOWDOWN_BITS`)."""
+    out = []
+    for name, on in decode_slowdown(word).items():
+        if on:
+            condition = name.removesuffix("_since_boot").replace("under_voltage", "under-voltage")
+            when = "since boot" if name.endswith("_since_boot") else "now"
+            out.append(f"{condition.replace('_', ' ')} {when}")
+    return out
 
 
 def _under_voltage_alarm(hwmon: Path) -> bool | None:
@@ -284,15 +254,14 @@ def _under_voltage_alarm(hwmon: Path) -> bool | None:
     return None
 
 
-def check_slowdown(firmware: Path = Path("/sys/devices/platform/soc/soc:firmware/get_throttled"),
-                   thermal: Path = Path("/sys/class/thermal"),
-                   hwmon: Path = Path("/sys/class/hwmon"),
-                   run: Callable[[list[str]], str | None] = _run_quietly) -> list[Finding]:
+def check_slowdown(probe: HostProbe | None = None,
+                   hwmon: Path = Path("/sys/class/hwmon")) -> list[Finding]:
     """Temperature, slowdown and under-voltage, where the board reports them."""
     out = []
     power_fix = ("use a supply that holds its voltage under load (Raspberry Pi: the official "
                  "one), a short thick cable, and a powered hub for the receiver")
-    word = _slowdown_word(firmware, run)
+    probe = probe or HostProbe()
+    word = probe.slowdown_word()
     if word is not None:
         flags = slowdown_flags(word)
         if word & _NOW_BITS:
@@ -307,9 +276,9 @@ def check_slowdown(firmware: Path = Path("/sys/devices/platform/soc/soc:firmware
     if alarm:
         out.append(Finding("under-voltage", "fail", "the board reports under-voltage now",
                            power_fix))
-    temps = _temperatures(thermal)
+    temps = probe.temperatures()
     if temps:
-        hottest = max(temps)
+        hottest = max(temps.values())
         status = "warn" if hottest >= HOT_C else "ok"
         out.append(Finding("temperature", status, f"CPU {hottest:.1f} degC",
                            "add a heatsink or airflow; a slowed CPU drops samples"
@@ -317,26 +286,6 @@ def check_slowdown(firmware: Path = Path("/sys/devices/platform/soc/soc:firmware
     if not out:
         out.append(Finding("slowdown", "note", "this machine reports no slowdown, "
                            "under-voltage or temperature"))
-    return out
-
-
-def board_health(firmware: Path = Path("/sys/devices/platform/soc/soc:firmware/get_throttled"),
-                 thermal: Path = Path("/sys/class/thermal"),
-                 run: Callable[[list[str]], str | None] = _run_quietly,
-                 ) -> dict[str, float | str]:
-    """CPU load per core, hottest CPU temperature and slowdown state, where reported.
-
-    For status records: keys appear only when the machine reports them.
-    """
-    out: dict[str, float | str] = {}
-    with contextlib.suppress(OSError):   # no load average on this system
-        out["cpu_load"] = round(os.getloadavg()[0] / (os.cpu_count() or 1), 3)
-    temps = _temperatures(thermal)
-    if temps:
-        out["temperature_c"] = round(max(temps), 1)
-    word = _slowdown_word(firmware, run)
-    if word is not None:
-        out["slowed"] = ", ".join(slowdown_flags(word)) or "no"
     return out
 
 
