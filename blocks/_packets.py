@@ -31,6 +31,7 @@ import numpy as np
 from blocks._crc import crc16_ccitt_false
 
 __all__ = [
+    "CRC_BITS",
     "DEFAULT_SYNC_WORD",
     "SYNC_BITS",
     "FoundPacket",
@@ -48,7 +49,8 @@ DEFAULT_SYNC_WORD: int = 0x898147B4
 SYNC_BITS = 32
 
 _LENGTH_BITS = 8
-_CRC_BITS = 16
+#: Bits of the CRC-16/CCITT-FALSE that ends every packet.
+CRC_BITS = 16
 
 
 def sync_word_bits(sync_word: int = DEFAULT_SYNC_WORD) -> np.ndarray:
@@ -199,7 +201,7 @@ def _read_packet(bits: np.ndarray, at: int, offset: int, errors: int,
     if bits.shape[0] < head + _LENGTH_BITS:
         return None
     length = int(np.packbits(bits[head:head + _LENGTH_BITS])[0])
-    end = head + _LENGTH_BITS * (1 + length) + _CRC_BITS
+    end = head + _LENGTH_BITS * (1 + length) + CRC_BITS
     if bits.shape[0] < end:
         return None
     body = np.packbits(bits[head:end])
@@ -271,7 +273,7 @@ def find_packets(bits: np.ndarray, start: int = 0, max_bit_errors: int = 0,
             keep = int(at)
             break
         packets.append(packet)
-        resume = packet.payload_start - offset + 8 * packet.length + _CRC_BITS \
+        resume = packet.payload_start - offset + 8 * packet.length + CRC_BITS \
             if packet.crc_ok else int(at) + 1
     if keep is None:
         keep = max(resume, buf.shape[0] - (SYNC_BITS - 1))

@@ -38,6 +38,7 @@ from typing import Any, BinaryIO
 
 import numpy as np
 
+from blocks._packets import CRC_BITS
 from blocks._sampleformat import encode_samples, parse_datatype
 from blocks._sigmf import DATA_KEY, metadata_document, sigmf_paths, write_metadata
 from stream.block import Block, Port, StreamSpec
@@ -48,9 +49,6 @@ from stream.params import Param
 __all__ = ["Record"]
 
 log = logging.getLogger(__name__)
-
-#: Bits of the CRC-16 that ends every packet (the format of ``blocks/_packets.py``).
-_CRC_BITS = 16
 
 
 def _number(value: Any) -> float | None:
@@ -188,7 +186,7 @@ class Record(Block):
             fields = [_number(data.get(k)) for k in ("start", "payload_start", "payload_bits")]
             if None not in fields:
                 start, payload_start, payload_bits = fields
-                bits = payload_start - start + payload_bits + _CRC_BITS
+                bits = payload_start - start + payload_bits + CRC_BITS
                 count = max(1, round(bits / rate * self._rate))
         self._add_note(note, self._dataset_index(stream_index), count)
 

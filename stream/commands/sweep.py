@@ -33,6 +33,7 @@ from stream.commands.common import (
 from stream.errors import PipelineError
 from stream.graph import Pipeline
 from stream.loader import load_pipeline
+from stream.pictures import PlotUnavailable, load_pyplot
 from stream.runner import Runner
 
 __all__ = ["COLUMNS", "HELP", "add_arguments", "ebn0_points", "implementation_loss_db",
@@ -287,18 +288,8 @@ def _write_csv(path: Path, points: Sequence[dict[str, Any]]) -> None:
             writer.writerow({k: ("" if p[k] is None else p[k]) for k in COLUMNS})
 
 
-def _load_pyplot():
-    """matplotlib's pyplot on the Agg backend (no display needed)."""
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    return plt
-
-
 def _plot(path: Path, result: dict[str, Any]) -> None:
-    plt = _load_pyplot()
+    plt = load_pyplot()
     points = result["points"]
     ebn0 = np.array([p["ebn0_db"] for p in points])
     fig, ax = plt.subplots(figsize=(7, 5), dpi=100)
@@ -345,10 +336,9 @@ def _check_options(args: argparse.Namespace) -> None:
             raise _BadOption(f"{option}: folder does not exist (got {str(path)!r})")
     if args.plot is not None:
         try:
-            _load_pyplot()
-        except ImportError:
-            raise _BadOption("--plot needs matplotlib (install the 'plot' extra: "
-                             "pip install 'phasefree[plot]')") from None
+            load_pyplot()
+        except PlotUnavailable as err:
+            raise _BadOption(f"--plot: {err}") from None
 
 
 def main(args: argparse.Namespace) -> int:
