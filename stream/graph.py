@@ -56,11 +56,15 @@ class Pipeline:
         Name shown in status and summary.
     queue_depth : int
         Chunks each link holds before its producer waits.
+    cpus : str or tuple of int
+        Cores for the block threads (``stream.cpus``): ``"auto"``, ``"all"`` or core numbers.
     """
 
-    def __init__(self, name: str = "pipeline", queue_depth: int = 8) -> None:
+    def __init__(self, name: str = "pipeline", queue_depth: int = 8,
+                 cpus: str | tuple[int, ...] = "auto") -> None:
         self.name = name
         self.queue_depth = queue_depth
+        self.cpus = cpus
         self.blocks: dict[str, Block] = {}
         self.edges: list[Edge] = []
         self._keys: dict[str, str] = {}

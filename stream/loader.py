@@ -56,6 +56,7 @@ from pathlib import Path
 from typing import Any
 
 from stream import registry
+from stream.cpus import CpuSettingError, parse_cpus
 from stream.errors import ParamError, PipelineError
 from stream.graph import Pipeline, parse_endpoint
 from stream.params import Param
@@ -71,6 +72,7 @@ PIPELINE_KEYS = {
     "symbol_rate": "default symbol_rate (symbols/s) of blocks that take one",
     "links": "list of chains 'a -> b -> c' ('~>' makes a lossy tap)",
     "queue_depth": "chunks a link holds before it applies backpressure",
+    "cpus": "cores of the block threads: 'auto' (one core per process), 'all', or a list",
     "include": "other pipeline files whose blocks, links, parts and crossings join this one",
 }
 #: Top-level tables of a pipeline file.
@@ -240,7 +242,11 @@ def _assemble(docs: list[dict[str, Any]], overrides: Sequence[str]) -> Pipeline:
         depth = _QUEUE_DEPTH.check(head.get("queue_depth", _QUEUE_DEPTH.default))
     except ParamError as err:
         raise PipelineError(f"pipeline.{err.name}", err.message) from None
-    pipe = Pipeline(str(head.get("name", "pipeline")), queue_depth=depth)
+    try:
+        cpus = parse_cpus(head.get("cpus", "auto"))
+    except CpuSettingError as err:
+        raise PipelineError("pipeline.cpus", str(err)) from None
+    pipe = Pipeline(str(head.get("name", "pipeline")), queue_depth=depth, cpus=cpus)
     for doc, own_head in zip(docs, heads, strict=True):
         inherited = _inherited(own_head)
         blocks = doc.get("blocks")

@@ -22,6 +22,7 @@ import zmq
 from threadpoolctl import ThreadpoolController
 
 from stream.block import Block, Source
+from stream.cpus import choose_cpus, parse_cpus, pinned
 from stream.crossing import NetworkEnds
 from stream.errors import BlockFailed, LinkClosed
 from stream.frame import Message, MessageKind
@@ -64,10 +65,14 @@ class Runner:
     part : PartPlan or None
         Run only these parts of a divided pipeline (``stream.parts.plan_part``); links to the
         other parts travel over their crossings' addresses. None runs every block.
+    cpus : str, int, list of int or None
+        Cores of the block threads (``stream.cpus``; default: the pipeline's ``cpus``,
+        normally ``"auto"``: one core per process).
     """
 
     def __init__(self, pipeline: Pipeline, queue_depth: int | None = None,
-                 drain_s: float = 1.5, part: PartPlan | None = None) -> None:
+                 drain_s: float = 1.5, part: PartPlan | None = None,
+                 cpus: str | int | list[int] | None = None) -> None:
         if not pipeline.validated:
             pipeline.validate()
         self.pipeline = pipeline
@@ -81,6 +86,12 @@ class Runner:
         self.links: dict[str, LinkCounters] = {}
         self.block_ids = [b for b in pipeline.blocks if part is None or b in part.blocks]
         self._network = NetworkEnds(part, self._fail) if part is not None else None
+        part_index = None
+        if part is not None and pipeline.layout is not None:
+            part_index = list(pipeline.layout.parts).index(part.names[0])
+        setting = pipeline.cpus if cpus is None else parse_cpus(cpus)
+        #: The cores the block threads run on (None: wherever the system puts them).
+        self.cpus = choose_cpus(setting, part_index)
         self._readings: dict[str, dict[str, Any]] = {bid: {} for bid in pipeline.blocks}
         self._views: dict[str, dict[str, Any]] = {bid: {} for bid in pipeline.blocks}
         self._threads: list[threading.Thread] = []
@@ -188,8 +199,10 @@ class Runner:
             t = threading.Thread(target=self._guard, name=f"block-{bid}",
                                  args=(target, block, inlets[bid], outlets[bid]), daemon=True)
             self._threads.append(t)
-        for t in self._threads:
-            t.start()
+        # after the sockets exist: libzmq's own I/O threads (network crossings) stay free
+        with pinned(self.cpus):
+            for t in self._threads:
+                t.start()
 
     def _guard(self, target: Callable, block: Block, inlets: list[Inlet],
                outlets: list[tuple[str, Outlet]]) -> None:
@@ -332,6 +345,7 @@ class Runner:
         out = self.status()
         out["event"] = "summary"
         out["reason"] = self.reason
+        out["cpus"] = "all" if self.cpus is None else sorted(self.cpus)
         if self.failure is not None:
             out["error"] = {"block": self.failure.block_id, "message": str(self.failure.error),
                             "type": type(self.failure.error).__name__}

@@ -13,6 +13,7 @@ from stream.commands.common import (
     add_pipeline_arguments,
     open_pipeline,
 )
+from stream.cpus import CpuSettingError
 from stream.errors import PipelineError
 from stream.host import HostProbe
 from stream.monitor import monitor_argument, open_monitor, with_views
@@ -40,6 +41,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="run only these parts of a divided pipeline; links to the other "
                              "parts go over their crossings (default: the parts the file "
                              "declares)")
+    parser.add_argument("--cpus", metavar="auto|all|LIST",
+                        help="cores for the block threads: auto (default: one core per process; "
+                             "divide the pipeline into parts to use more), all, or e.g. 2 or "
+                             "0,2-3 (overrides [pipeline] cpus)")
     parser.add_argument("--monitor", type=monitor_argument, metavar="HOST:PORT",
                         help="serve the live page, /status and /metrics on HOST:PORT (port 0: "
                              "any free port; use 127.0.0.1 unless others must reach it: the "
@@ -68,7 +73,11 @@ def main(args: argparse.Namespace) -> int:
     except PipelineError as err:
         print(f"phasefree: {err.in_file(args.file) if args.file else err}", file=sys.stderr)
         return EXIT_CONFIG
-    runner = Runner(pipe, part=plan)
+    try:
+        runner = Runner(pipe, part=plan, cpus=args.cpus)
+    except CpuSettingError as err:
+        print(f"phasefree: --cpus: {err}", file=sys.stderr)
+        return EXIT_CONFIG
     probe = HostProbe()
     monitor = None
     if args.monitor is not None:

@@ -7,6 +7,7 @@ module registers them. A block that must wait for the test (``test_hold``) waits
 
 from __future__ import annotations
 
+import os
 import threading
 import time
 from typing import ClassVar
@@ -17,7 +18,7 @@ from stream.block import Block, Port, Source, StreamSpec
 from stream.chunk import Chunk
 from stream.params import Param
 
-__all__ = ["Bits", "Fail", "Hold", "Join", "Probe", "Slow", "Split", "gate"]
+__all__ = ["Bits", "Cores", "Fail", "Hold", "Join", "Probe", "Slow", "Split", "gate"]
 
 _IQ_OR_REAL = ("complex64", "float32")
 _GATES: dict[str, threading.Event] = {}
@@ -159,3 +160,22 @@ class Split(Source):
         for port in ("i", "q"):
             self.emit(np.zeros(self.p.chunk_size, np.float32), port=port)
         return False
+
+
+class Cores(Block):
+    """Pass samples through and report the cores its thread was allowed to run on."""
+
+    kind = "test_cores"
+    inputs = (Port("in", _IQ_OR_REAL),)
+    outputs = (Port("out", "same"),)
+
+    def setup(self, inputs: dict[str, StreamSpec]) -> dict[str, StreamSpec]:
+        self._cores: list[int] = []
+        return super().setup(inputs)
+
+    def process(self, chunk: Chunk) -> None:
+        self._cores = sorted(os.sched_getaffinity(0))
+        self.emit(chunk.samples)
+
+    def readings(self) -> dict[str, list[int]]:
+        return {"cores": self._cores}

@@ -184,3 +184,8 @@ def test_default_run_from_an_installed_location_runs_the_loopback(tmp_path):
     summary = json.loads(out.strip().splitlines()[-1])
     assert summary["reason"] == "time-limit"
     assert summary["blocks"]["ber"]["bits"] > 0
+
+
+def test_a_bad_cpus_option_exits_2_naming_the_option(tmp_path, capsys):
+    assert main(["run", str(_tone_to_record(tmp_path)), "--cpus", "lots"]) == 2
+    assert "--cpus" in capsys.readouterr().err

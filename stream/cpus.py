@@ -1,0 +1,162 @@
+"""Which processor cores a run's block threads may use.
+
+Block threads of one process take turns at Python's global interpreter lock. Spread over
+several cores they hand the lock from core to core at every numpy call that releases it; each
+hand-over wakes a thread on the other core and moves its data there. On the 2-core machine the
+benchmark runs on, the DBPSK receiver ran 1.8x faster with all its threads on one core than
+spread over both (``tools/bench.py`` measures the runtime on one core for that reason). So by
+default a process keeps its block threads on one core, and more cores are used by dividing the
+pipeline into parts, one process each (``[parts]`` in the pipeline file).
+
+Settings (``[pipeline] cpus`` or ``phasefree run --cpus``):
+
+- ``"auto"`` (default): one core; a process running part *i* of a divided pipeline takes the
+  *i*-th allowed core (so the parts of a pipeline run side by side on one machine), an undivided
+  pipeline the core its process is running on when the run starts;
+- ``"all"``: leave the threads wherever the operating system puts them;
+- a list of core numbers (``[2]``, ``[0, 1]``) or the same as text (``"2"``, ``"0,2-3"``).
+
+Where the operating system offers no affinity call (only Linux has ``os.sched_setaffinity``),
+or only one core is allowed anyway, nothing is pinned.
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Iterator
+from contextlib import contextmanager
+from typing import Any
+
+__all__ = ["CpuSettingError", "allowed_cpus", "choose_cpus", "parse_cpus", "pinned"]
+
+#: The settings that are words rather than core numbers.
+WORDS = ("auto", "all")
+
+
+class CpuSettingError(ValueError):
+    """A ``cpus`` setting that is neither a known word nor a list of allowed cores."""
+
+
+def allowed_cpus() -> list[int] | None:
+    """Cores this process may run on, ascending; None where affinity cannot be set."""
+    if not hasattr(os, "sched_getaffinity") or not hasattr(os, "sched_setaffinity"):
+        return None
+    return sorted(os.sched_getaffinity(0))
+
+
+def parse_cpus(value: Any) -> str | tuple[int, ...]:
+    """Read a ``cpus`` setting: ``"auto"``, ``"all"``, or a tuple of core numbers.
+
+    Parameters
+    ----------
+    value : str, int or list of int
+        ``"auto"``, ``"all"``, a core number, a list of them, or text such as ``"0,2-3"``.
+
+    Raises
+    ------
+    CpuSettingError
+        For anything else, or a core this process is not allowed to use.
+    """
+    if isinstance(value, str) and value.strip().lower() in WORDS:
+        return value.strip().lower()
+    if isinstance(value, bool):
+        raise CpuSettingError(f"expected 'auto', 'all' or core numbers (got {value!r})")
+    if isinstance(value, int):
+        cores = [value]
+    elif isinstance(value, str):
+        cores = _parse_ranges(value)
+    elif isinstance(value, list | tuple) and value \
+            and all(isinstance(v, int) and not isinstance(v, bool) for v in value):
+        cores = list(value)
+    else:
+        raise CpuSettingError(f"expected 'auto', 'all' or core numbers (got {value!r})")
+    allowed = allowed_cpus()
+    if allowed is not None:
+        outside = sorted(set(cores) - set(allowed))
+        if outside:
+            raise CpuSettingError(f"core {outside[0]} is not available to this process "
+                                  f"(available: {_ranges(allowed)})")
+    return tuple(sorted(set(cores)))
+
+
+def _parse_ranges(text: str) -> list[int]:
+    cores: list[int] = []
+    for piece in text.split(","):
+        low, dash, high = piece.strip().partition("-")
+        try:
+            first = int(low)
+            last = int(high) if dash else first
+        except ValueError:
+            raise CpuSettingError(f"expected 'auto', 'all' or core numbers such as '0,2-3' "
+                                  f"(got {text!r})") from None
+        if first < 0 or last < first:
+            raise CpuSettingError(f"bad core range {piece.strip()!r} in {text!r}")
+        cores.extend(range(first, last + 1))
+    return cores
+
+
+def _ranges(cores: list[int]) -> str:
+    """``[0, 1, 2, 5]`` -> ``"0-2,5"``."""
+    out: list[str] = []
+    start = prev = cores[0]
+    for core in [*cores[1:], None]:
+        if core is not None and core == prev + 1:
+            prev = core
+            continue
+        out.append(f"{start}" if start == prev else f"{start}-{prev}")
+        if core is not None:
+            start = prev = core
+    return ",".join(out)
+
+
+def current_cpu() -> int | None:
+    """The core the calling thread runs on now (Linux ``/proc``), or None if unknown."""
+    try:
+        with open("/proc/thread-self/stat", encoding="ascii") as f:
+            stat = f.read()
+        # fields after the command name in parentheses; "processor" is field 39 of proc(5)
+        return int(stat.rpartition(")")[2].split()[36])
+    except (OSError, ValueError, IndexError):
+        return None
+
+
+def choose_cpus(setting: str | tuple[int, ...], part_index: int | None = None,
+                ) -> frozenset[int] | None:
+    """The cores to pin a run's block threads to, or None to leave them be.
+
+    Parameters
+    ----------
+    setting : str or tuple of int
+        A parsed setting (``parse_cpus``).
+    part_index : int or None
+        Position of the part this process runs among the pipeline's parts (None: undivided).
+    """
+    allowed = allowed_cpus()
+    if allowed is None or setting == "all":
+        return None
+    if setting != "auto":
+        return frozenset(setting)
+    if len(allowed) < 2:
+        return None
+    if part_index is not None:
+        return frozenset({allowed[part_index % len(allowed)]})
+    here = current_cpu()
+    return frozenset({here if here in allowed else allowed[0]})
+
+
+@contextmanager
+def pinned(cpus: frozenset[int] | None) -> Iterator[None]:
+    """Run the body with the calling thread on ``cpus``; threads it starts keep them.
+
+    A thread inherits its creator's affinity when it is created, so block threads started
+    inside the body stay on ``cpus`` while the calling thread gets its own affinity back.
+    """
+    if cpus is None:
+        yield
+        return
+    before = os.sched_getaffinity(0)
+    os.sched_setaffinity(0, cpus)
+    try:
+        yield
+    finally:
+        os.sched_setaffinity(0, before)
