@@ -59,7 +59,7 @@ from dataclasses import dataclass, fields, replace
 from types import SimpleNamespace
 
 import numpy as np
-from scipy.stats import beta
+from scipy.special import betaincinv
 
 from blocks._prbs import (
     PrbsPolynomial,
@@ -490,7 +490,9 @@ def clopper_pearson(errors: int, bits: int, confidence: float = 0.95) -> tuple[f
     (low, high) : tuple of float
         ``low = B(alpha/2; k, n-k+1)``, ``high = B(1-alpha/2; k+1, n-k)`` with ``B`` the beta
         quantile, ``alpha = 1 - confidence``; 0 and 1 at the ends [1]_. With no bits the
-        interval is (0, 1).
+        interval is (0, 1). The quantile is the inverse of the regularised incomplete beta
+        function, ``scipy.special.betaincinv``: the values of ``scipy.stats.beta.ppf``
+        without the cost of its argument handling.
 
     References
     ----------
@@ -501,6 +503,6 @@ def clopper_pearson(errors: int, bits: int, confidence: float = 0.95) -> tuple[f
     if not 0 <= errors <= bits:
         raise ValueError(f"errors must be in [0, bits] (got {errors} of {bits})")
     alpha = 1.0 - confidence
-    low = 0.0 if errors == 0 else float(beta.ppf(alpha / 2, errors, bits - errors + 1))
-    high = 1.0 if errors == bits else float(beta.ppf(1 - alpha / 2, errors + 1, bits - errors))
+    low = 0.0 if errors == 0 else float(betaincinv(errors, bits - errors + 1, alpha / 2))
+    high = 1.0 if errors == bits else float(betaincinv(errors + 1, bits - errors, 1 - alpha / 2))
     return low, high

@@ -38,16 +38,22 @@ References
 from __future__ import annotations
 
 import math
+from collections.abc import Iterator, Sequence
 from dataclasses import dataclass, field
+from typing import overload
 
 import numpy as np
 from scipy.special import i0e, i1e
 
+from blocks._bessel import log_i0
+
 __all__ = [
     "MIN_CLUSTER",
     "REFINE_STEPS",
+    "RICE_STEPS",
     "EnergyState",
     "OokLevels",
+    "WindowLevels",
     "cfar_factor",
     "energy_detect",
     "estimate_levels",
@@ -62,6 +68,9 @@ MIN_CLUSTER = 3
 _FLOOR = 1e-6
 #: Re-estimation passes after the two-cluster split (see ``_refine``).
 REFINE_STEPS = 3
+#: Newton steps of ``rice_threshold``: from its start they reach double precision for every
+#: ``A^2 / sigma^2`` from 1e-3 to 1e12 (below, the rounding noise of ``log I0(x) ~ x^2 / 4``).
+RICE_STEPS = 3
 
 
 @dataclass(frozen=True)
@@ -94,6 +103,57 @@ class OokLevels:
     ones_var: float = math.nan
     zeros_mean: float = math.nan
     zeros_var: float = math.nan
+
+
+#: Number of ``OokLevels`` fields, the rows of ``WindowLevels.columns``.
+_COLUMNS = len(OokLevels.__dataclass_fields__)
+_SIGNAL_ROW = list(OokLevels.__dataclass_fields__).index("signal")
+
+
+class WindowLevels(Sequence[OokLevels]):
+    """The ``OokLevels`` of consecutive windows, held as one array per field.
+
+    A chunk decides many windows at once; the records are made only for the windows looked
+    at (usually the last).
+
+    Parameters
+    ----------
+    columns : numpy.ndarray
+        ``(10, windows)`` float64, one row per ``OokLevels`` field in declaration order
+        (``signal`` 1.0 or 0.0).
+    """
+
+    def __init__(self, columns: np.ndarray) -> None:
+        self.columns = columns
+
+    def __len__(self) -> int:
+        return self.columns.shape[1]
+
+    @overload
+    def __getitem__(self, i: int) -> OokLevels: ...
+    @overload
+    def __getitem__(self, i: slice) -> WindowLevels: ...
+
+    def __getitem__(self, i: int | slice) -> OokLevels | WindowLevels:
+        if isinstance(i, slice):
+            return WindowLevels(self.columns[:, i])
+        noise, on, threshold, signal, ones, zeros, m1, v1, m0, v0 = self.columns[:, i].tolist()
+        return OokLevels(noise, on, threshold, bool(signal), int(ones), int(zeros), m1, v1, m0,
+                         v0)
+
+    def __iter__(self) -> Iterator[OokLevels]:
+        return (self[i] for i in range(len(self)))
+
+    def last_signal(self) -> OokLevels | None:
+        """The last window whose levels come from a signal, or None."""
+        found = np.flatnonzero(self.columns[_SIGNAL_ROW])
+        return self[int(found[-1])] if found.size else None
+
+    @staticmethod
+    def join(parts: Sequence[WindowLevels]) -> WindowLevels:
+        """The windows of ``parts``, in order."""
+        return WindowLevels(np.concatenate([p.columns for p in parts], axis=1) if parts
+                            else np.zeros((_COLUMNS, 0)))
 
 
 @dataclass(frozen=True)
@@ -149,20 +209,22 @@ def two_level_split(z: np.ndarray) -> tuple[float, float, int]:
 
 
 def _split_sorted_rows(s: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """``two_level_split`` of every row of ``s`` (rows sorted ascending), and their cumsums."""
+    """``two_level_split`` of every row of ``s`` (rows sorted ascending), and their cumsums.
+
+    With ``C_k`` the sum of the ``k`` lowest values, ``k (n - k) (m1 - m0)^2`` equals
+    ``(k C_n - n C_k)^2 / (k (n - k))``, which needs no per-cut means.
+    """
     n = s.shape[1]
     csum = np.cumsum(s, axis=1)
     k = np.arange(1, n)
-    m0 = csum[:, :-1] / k
-    m1 = (csum[:, -1:] - csum[:, :-1]) / (n - k)
-    best = np.argmax(k * (n - k) * (m1 - m0) ** 2, axis=1)
+    gap = csum[:, :-1] * float(n)
+    gap -= csum[:, -1:] * k
+    gap *= gap
+    gap /= k * (n - k)
+    best = np.argmax(gap, axis=1)
     rows = np.arange(s.shape[0])
-    return m0[rows, best], m1[rows, best], best + 1, csum
-
-
-def _log_i0(x: np.ndarray | float) -> np.ndarray:
-    """log I0(x) without overflow, using the exponentially scaled Bessel function."""
-    return np.log(i0e(x)) + np.abs(x)
+    below = csum[rows, best]
+    return below / (best + 1), (csum[:, -1] - below) / (n - 1 - best), best + 1, csum
 
 
 def rice_threshold(signal_power: float, noise_floor: float) -> float:
@@ -184,14 +246,20 @@ def rice_threshold(signal_power: float, noise_floor: float) -> float:
     -----
     With ``p0(z) = exp(-z/s)/s`` and ``p1(z) = exp(-(z + A^2)/s) I0(2 A sqrt(z)/s)/s``
     (``s = sigma^2``, [1]_), ``p1 = p0`` gives ``log I0(x) = A^2/s`` with ``x = 2A sqrt(T)/s``.
-    The equation is solved for ``x`` by Newton's method from ``x = 2 sqrt(A^2/s)``, where
-    ``log I0(x) <= x^2/4`` guarantees a start below the root; ``log I0`` is convex, so the
-    iteration converges monotonically after the first step. Then ``T = (x s)^2 / (4 A^2)``.
-    The windows of ``energy_detect`` are solved together, one array per Newton step.
+    The equation is solved for ``x`` by Newton's method, started from the root of the small-
+    or the large-argument form ``log I0(x) ~ x^2/4 - x^4/64`` or ``~ x - log(2 pi x)/2`` [2]_,
+    ``2 sqrt(g) (1 + g/8)`` below ``g = A^2/s = 4`` and about ``g + log(2 pi g)/2`` above;
+    ``log I0`` is convex and increasing, so from any start the iteration converges
+    monotonically after the first step; ``RICE_STEPS`` steps, the same for every window, reach
+    full precision. Then
+    ``T = (x s)^2 / (4 A^2)``. The windows of ``energy_detect`` are solved together, one array
+    per Newton step.
 
     References
     ----------
     .. [1] J. G. Proakis and M. Salehi, Digital Communications, 5th ed., 2008, sec. 2.3.
+    .. [2] M. Abramowitz and I. A. Stegun, Handbook of Mathematical Functions, Dover, 1965,
+       9.6.12 (series) and 9.7.1 (asymptotic expansion).
     """
     if not signal_power > 0 or not noise_floor > 0:
         raise ValueError(f"signal_power and noise_floor must be > 0 "
@@ -203,16 +271,11 @@ def rice_threshold(signal_power: float, noise_floor: float) -> float:
 def _rice_threshold_rows(signal_power: np.ndarray, noise_floor: np.ndarray) -> np.ndarray:
     """``rice_threshold`` of every element (arrays of valid, positive values)."""
     gamma = signal_power / noise_floor
-    x = 2.0 * np.sqrt(gamma)
-    todo = np.arange(x.shape[0])
-    for _ in range(60):
-        xt = x[todo]
-        step = (_log_i0(xt) - gamma[todo]) / (i1e(xt) / i0e(xt))
-        xt = xt - step
-        x[todo] = xt
-        todo = todo[~(np.abs(step) <= 1e-13 * xt)]
-        if not todo.size:
-            break
+    x = np.where(gamma < 4.0, 2.0 * np.sqrt(gamma) * (1.0 + gamma / 8.0),
+                 gamma + 0.5 * np.log(2.0 * np.pi * np.maximum(gamma, 4.0)))
+    for _ in range(RICE_STEPS):
+        scaled = i0e(x)
+        x -= (np.log(scaled) + x - gamma) * scaled / i1e(x)
     return (x * noise_floor) ** 2 / (4.0 * signal_power)
 
 
@@ -231,10 +294,17 @@ def ook_llr(z: np.ndarray, signal_power: float | np.ndarray,
     -------
     numpy.ndarray
         ``log I0(2 A sqrt(z) / sigma^2) - A^2 / sigma^2`` (float64); positive means "on".
+
+    Notes
+    -----
+    ``log I0`` comes from the interpolation table of ``blocks._bessel`` (within ``1e-12`` of
+    ``scipy.special.i0e``).
     """
-    a = np.sqrt(signal_power)
-    x = 2.0 * a * np.sqrt(np.asarray(z, dtype=np.float64)) / noise_floor
-    return _log_i0(x) - signal_power / noise_floor
+    x = np.sqrt(np.asarray(z, dtype=np.float64))
+    x *= 2.0 * np.sqrt(signal_power) / noise_floor
+    out = log_i0(x)
+    out -= signal_power / noise_floor
+    return out
 
 
 def cfar_factor(false_alarm: float, n: int) -> float:
@@ -297,15 +367,19 @@ def estimate_levels(z: np.ndarray, false_alarm: float, min_contrast: float,
         Levels and threshold; the decision statistics fields are left at their defaults.
     """
     z = np.asarray(z, dtype=np.float64)
-    return _estimate_rows(z[None, :], false_alarm, min_contrast, held)[0]
+    noise, on, threshold, signal = _estimate_rows(z[None, :], false_alarm, min_contrast, held)
+    return OokLevels(float(noise[0]), float(on[0]), float(threshold[0]), bool(signal[0]))
 
 
 def _estimate_rows(z: np.ndarray, false_alarm: float, min_contrast: float,
-                   held: OokLevels | None) -> list[OokLevels]:
+                   held: OokLevels | None,
+                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """``estimate_levels`` of consecutive windows, the rows of ``z``, each holding for the next.
 
-    Steps 1-2 of the module notes do not depend on earlier windows and run on all rows at once;
-    only the choice between held levels and the noise-only threshold goes row by row.
+    Steps 1-2 of the module notes do not depend on earlier windows and run on all rows at once.
+    Holding (step 3) copies the levels of the last row before that found a signal of its own
+    (or ``held``), so it is a running maximum of row indices. Returns the noise floor, on
+    level, threshold and signal flag of every row.
     """
     rows, n = z.shape
     signal = np.zeros(rows, dtype=bool)
@@ -323,21 +397,22 @@ def _estimate_rows(z: np.ndarray, false_alarm: float, min_contrast: float,
             chosen = cand[good]
             signal[chosen] = True
             noise[chosen], on[chosen], threshold[chosen] = floor[good], level[good], thr[good]
+    if signal.all():
+        return noise, on, threshold, signal
     means = z.mean(axis=1)
-    alpha = math.nan if signal.all() else cfar_factor(false_alarm, n)
-    out = []
-    for i in range(rows):
-        if signal[i]:
-            levels = OokLevels(float(noise[i]), float(on[i]), float(threshold[i]), True)
-        elif held is not None and means[i] >= held.threshold:
-            levels = OokLevels(held.noise_floor, held.on_level, held.threshold, True)
-        else:
-            mean = float(means[i])
-            levels = OokLevels(mean, math.nan, alpha * mean, False)
-        if levels.signal:
-            held = levels
-        out.append(levels)
-    return out
+    # the last row before each row with a signal of its own; -1: none, the held levels
+    own = np.maximum.accumulate(np.where(signal, np.arange(rows), -1))
+    source = np.concatenate(([-1], own[:-1]))
+    last = held if held is not None else OokLevels(math.nan, math.nan, math.nan, False)
+    pool = [np.append(v, extra) for v, extra in
+            ((noise, last.noise_floor), (on, last.on_level), (threshold, last.threshold))]
+    holds = ~signal & (means >= pool[2][source])
+    noise, on, threshold = (np.where(holds, v[source], v[:rows]) for v in pool)
+    signal |= holds
+    rest = ~signal
+    noise[rest] = means[rest]
+    threshold[rest] = cfar_factor(false_alarm, n) * means[rest]
+    return noise, on, threshold, signal
 
 
 def _refine_rows(s: np.ndarray, csum: np.ndarray, low: np.ndarray, high: np.ndarray,
@@ -363,56 +438,65 @@ def _refine_rows(s: np.ndarray, csum: np.ndarray, low: np.ndarray, high: np.ndar
     n = s.shape[1]
     noise, on = low.copy(), high.copy()
     threshold = _rice_threshold_rows(on - noise, noise)
-    todo = np.arange(s.shape[0])
+    # the rows still refined, and their sorted energies, sums and levels
+    todo, s_t, csum_t = np.arange(s.shape[0]), s, csum
+    noise_t, on_t, threshold_t = noise, on, threshold
     for _ in range(REFINE_STEPS):
-        count_off = np.count_nonzero(s[todo] <= threshold[todo, None], axis=1)
+        count_off = (s_t <= threshold_t[:, None]).sum(axis=1)
         keep = np.minimum(count_off, n - count_off) >= MIN_CLUSTER
-        todo, count_off = todo[keep], count_off[keep]
-        if not todo.size:
-            break
-        u = threshold[todo] / noise[todo]
-        kept = 1.0 - u * np.exp(-u) / -np.expm1(-u)
-        below = csum[todo, count_off - 1]
-        noise[todo] = np.maximum(below / count_off / kept, _FLOOR * on[todo])
-        on[todo] = (csum[todo, -1] - below) / (n - count_off)
-        todo = todo[on[todo] > noise[todo]]
-        if not todo.size:
-            break
-        threshold[todo] = _rice_threshold_rows(on[todo] - noise[todo], noise[todo])
+        if not keep.all():
+            todo, s_t, csum_t, count_off = todo[keep], s_t[keep], csum_t[keep], count_off[keep]
+            noise_t, on_t, threshold_t = noise_t[keep], on_t[keep], threshold_t[keep]
+            if not todo.size:
+                break
+        u = threshold_t / noise_t
+        kept = 1.0 - u / np.expm1(u)            # u e^-u / (1 - e^-u) = u / (e^u - 1)
+        below = csum_t[np.arange(todo.size), count_off - 1]
+        noise_t = np.maximum(below / count_off / kept, _FLOOR * on_t)
+        on_t = (csum_t[:, -1] - below) / (n - count_off)
+        noise[todo], on[todo] = noise_t, on_t
+        keep = on_t > noise_t
+        if not keep.all():
+            todo, s_t, csum_t = todo[keep], s_t[keep], csum_t[keep]
+            noise_t, on_t = noise_t[keep], on_t[keep]
+            if not todo.size:
+                break
+        threshold_t = _rice_threshold_rows(on_t - noise_t, noise_t)
+        threshold[todo] = threshold_t
     return noise, on, threshold
 
 
-def _decide_rows(z: np.ndarray, levels: list[OokLevels],
-                 ) -> tuple[np.ndarray, np.ndarray, list[OokLevels]]:
+def _decide_rows(z: np.ndarray, noise: np.ndarray, on: np.ndarray, threshold: np.ndarray,
+                 signal: np.ndarray) -> tuple[np.ndarray, np.ndarray, WindowLevels]:
     """Hard and soft decisions of every row of ``z`` with its window's levels, and statistics."""
-    noise = np.array([lv.noise_floor for lv in levels])
-    on = np.array([lv.on_level for lv in levels])
-    threshold = np.array([lv.threshold for lv in levels])
-    signal = np.array([lv.signal for lv in levels], dtype=bool)
-    soft = np.zeros(z.shape)
-    rows = np.flatnonzero(signal)
-    if rows.size:
-        soft[rows] = ook_llr(z[rows], (on[rows] - noise[rows])[:, None], noise[rows, None])
-    rows = np.flatnonzero(~signal & (noise > 0))
-    if rows.size:
-        soft[rows] = (z[rows] - threshold[rows, None]) / noise[rows, None]
+    if signal.all():
+        soft = ook_llr(z, (on - noise)[:, None], noise[:, None])
+    else:
+        soft = np.zeros(z.shape)
+        rows = np.flatnonzero(signal)
+        if rows.size:
+            soft[rows] = ook_llr(z[rows], (on[rows] - noise[rows])[:, None], noise[rows, None])
+        rows = np.flatnonzero(~signal & (noise > 0))
+        if rows.size:
+            soft[rows] = (z[rows] - threshold[rows, None]) / noise[rows, None]
     bits = soft > 0
-    ones = np.count_nonzero(bits, axis=1)
+    ones = bits.sum(axis=1)
     zeros = z.shape[1] - ones
     with np.errstate(invalid="ignore", divide="ignore"):
         m1 = np.where(bits, z, 0.0).sum(axis=1) / ones
         m0 = np.where(bits, 0.0, z).sum(axis=1) / zeros
-        v1 = np.where(bits, (z - m1[:, None]) ** 2, 0.0).sum(axis=1) / ones
-        v0 = np.where(bits, 0.0, (z - m0[:, None]) ** 2).sum(axis=1) / zeros
-    full = [OokLevels(lv.noise_floor, lv.on_level, lv.threshold, lv.signal, int(ones[i]),
-                      int(zeros[i]), float(m1[i]), float(v1[i]), float(m0[i]), float(v0[i]))
-            for i, lv in enumerate(levels)]
-    return bits.astype(np.uint8), soft.astype(np.float32), full
+        dev = z - np.where(bits, m1[:, None], m0[:, None])
+        dev *= dev
+        v1 = np.where(bits, dev, 0.0).sum(axis=1) / ones
+        v0 = np.where(bits, 0.0, dev).sum(axis=1) / zeros
+    levels = WindowLevels(np.array([noise, on, threshold, signal, ones, zeros, m1, v1, m0, v0],
+                                   dtype=np.float64))
+    return bits.view(np.uint8), soft.astype(np.float32), levels
 
 
 def energy_detect(y: np.ndarray, window: int, false_alarm: float, min_contrast: float,
                   state: EnergyState | None = None, final: bool = False,
-                  ) -> tuple[np.ndarray, np.ndarray, list[OokLevels], EnergyState]:
+                  ) -> tuple[np.ndarray, np.ndarray, WindowLevels, EnergyState]:
     """Decide OOK symbols by their energy, window by window.
 
     Parameters
@@ -438,8 +522,9 @@ def energy_detect(y: np.ndarray, window: int, false_alarm: float, min_contrast: 
     soft : numpy.ndarray
         float32 soft values, positive = 1: the log-likelihood ratio (natural log) in a signal
         window, ``(z - T) / sigma^2`` in a noise-only window.
-    levels : list of OokLevels
-        Levels and decision statistics of every window decided in this call.
+    levels : WindowLevels
+        Levels and decision statistics of every window decided in this call (a sequence of
+        ``OokLevels``).
     state : EnergyState
         State for the next call.
 
@@ -459,21 +544,23 @@ def energy_detect(y: np.ndarray, window: int, false_alarm: float, min_contrast: 
     held, last = state.held, state.last_window
     if full:
         rows = z[: full * window].reshape(full, window)
-        levels_out = _estimate_rows(rows, false_alarm, min_contrast, held)
-        bits, soft, levels_out = _decide_rows(rows, levels_out)
+        bits, soft, levels = _decide_rows(
+            rows, *_estimate_rows(rows, false_alarm, min_contrast, held))
         bits_out.append(bits.ravel())
         soft_out.append(soft.ravel())
-        held = next((lv for lv in reversed(levels_out) if lv.signal), held)
+        levels_out.append(levels)
+        held = levels.last_signal() or held
         last = rows[-1]
     pending = z[full * window:]
     if final and pending.size:
         context = np.concatenate([last, pending])[-window:]
-        levels = estimate_levels(context, false_alarm, min_contrast, held)
-        bits, soft, levels = _decide_rows(pending[None, :], [levels])
+        estimate = _estimate_rows(context[None, :], false_alarm, min_contrast, held)
+        bits, soft, levels = _decide_rows(pending[None, :], *estimate)
         bits_out.append(bits.ravel())
         soft_out.append(soft.ravel())
-        levels_out.extend(levels)
+        levels_out.append(levels)
         pending = pending[:0]
     bits = np.concatenate(bits_out) if bits_out else np.zeros(0, np.uint8)
     soft = np.concatenate(soft_out) if soft_out else np.zeros(0, np.float32)
-    return bits, soft, levels_out, EnergyState(pending.copy(), np.array(last), held)
+    return (bits, soft, WindowLevels.join(levels_out),
+            EnergyState(pending.copy(), np.array(last), held))

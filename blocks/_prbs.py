@@ -12,6 +12,9 @@ Generation is vectorised with the squared recurrence: over GF(2),
 ``D``, so ``a[n] = a[n - 2^k degree] XOR a[n - 2^k tap]`` holds too, and once ``2^k degree``
 bits are known the next ``2^k tap`` bits follow in one numpy operation. The block length
 doubles as the history grows, so ``count`` bits take ``O(log count)`` array operations.
+Patterns of up to ``TABLE_DEGREE`` stages are generated that way only once, two periods
+long, with the position of every register state in the period; every call copies from
+that table.
 
 References
 ----------
@@ -26,12 +29,14 @@ References
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cache
 
 import numpy as np
 
 __all__ = [
     "PRBS_NAMES",
     "PRBS_POLYNOMIALS",
+    "TABLE_DEGREE",
     "PrbsPolynomial",
     "PrbsState",
     "prbs_expected",
@@ -78,6 +83,8 @@ PRBS_POLYNOMIALS: dict[str, PrbsPolynomial] = {
 }
 #: Pattern names accepted everywhere a PRBS is chosen.
 PRBS_NAMES: tuple[str, ...] = tuple(PRBS_POLYNOMIALS)
+#: Most register stages of a pattern kept as a table (prbs15: some 260 kB of tables).
+TABLE_DEGREE = 16
 
 
 @dataclass(frozen=True)
@@ -133,6 +140,28 @@ def _lfsr_extend(head: np.ndarray, count: int, degree: int, tap: int) -> np.ndar
     return buf
 
 
+@cache
+def _period_table(name: str) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Tables of a pattern of up to ``TABLE_DEGREE`` stages.
+
+    Returns two periods and one register of the uninverted sequence from the all-ones start;
+    the same, as transmitted; the start position in the period of every register state
+    (-1: none), the state read as a binary number with its first output bit most
+    significant; and the weights that read it so.
+    """
+    poly = PRBS_POLYNOMIALS[name]
+    p, period = poly.degree, poly.period
+    plain = _lfsr_extend(np.ones(p, dtype=np.uint8), 2 * period, p, poly.tap)
+    sent = plain ^ np.uint8(poly.inverted)
+    weights = 1 << np.arange(p - 1, -1, -1)
+    states = np.convolve(plain[:period + p - 1], weights[::-1], mode="valid")
+    position = np.full(1 << p, -1, dtype=np.int32)
+    position[states] = np.arange(period)
+    for table in (plain, sent, position, weights):
+        table.setflags(write=False)
+    return plain, sent, position, weights
+
+
 def prbs_sequence(name: str, count: int, state: PrbsState | None = None,
                   ) -> tuple[np.ndarray, PrbsState]:
     """Generate the next ``count`` bits of a PRBS, as transmitted.
@@ -183,6 +212,16 @@ def prbs_sequence(name: str, count: int, state: PrbsState | None = None,
         if state.name != name:
             raise ValueError(f"state belongs to {state.name!r}, not {name!r}")
         register = np.frombuffer(state.register, dtype=np.uint8)
+    if poly.degree <= TABLE_DEGREE:
+        plain, sent, position, weights = _period_table(name)
+        at = int(position[int(np.dot(register, weights))])
+        if at >= 0:                           # else the all-zero register, which stays zero
+            if at + count <= sent.shape[0]:
+                bits = sent[at:at + count].copy()
+            else:
+                bits = np.take(sent[:poly.period], np.arange(at, at + count), mode="wrap")
+            end = (at + count) % poly.period
+            return bits, PrbsState(name, plain[end:end + poly.degree].tobytes())
     buf = _lfsr_extend(register, count, poly.degree, poly.tap)
     after = PrbsState(name, buf[count:].tobytes())
     bits = buf[:count].copy()

@@ -19,7 +19,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from numpy.lib.stride_tricks import sliding_window_view
+from numpy.lib.stride_tricks import as_strided
+from scipy import fft
 from scipy.signal import get_window
 
 __all__ = ["SpectrumState", "design_window", "periodograms", "update_average"]
@@ -88,6 +89,14 @@ def periodograms(x: np.ndarray, window: np.ndarray, hop: int,
         float64 ``(segments, nfft)``, FFT order (frequency 0 first).
     SpectrumState
         State for the next call.
+
+    Notes
+    -----
+    All the segments of a call go through one FFT call in the precision of the samples
+    (``scipy.fft`` transforms complex64 and float32 as such; the relative error of an FFT
+    grows as ``eps log2(nfft)``, common practice); a real stream uses the real FFT and the
+    two-sided periodogram is its mirror image (Hermitian symmetry of the transform of a real
+    signal).
     """
     nfft = window.shape[0]
     if not 1 <= hop <= nfft:
@@ -96,9 +105,16 @@ def periodograms(x: np.ndarray, window: np.ndarray, hop: int,
     buf = np.concatenate((rest, x)) if rest.shape[0] else np.asarray(x)
     if buf.shape[0] < nfft:
         return np.zeros((0, nfft)), SpectrumState(buf.copy())
-    segs = sliding_window_view(buf, nfft)[::hop]
-    spec = np.fft.fft(segs * window, axis=1)
-    power = spec.real ** 2 + spec.imag ** 2
+    step = buf.strides[0]
+    segs = as_strided(buf, ((buf.shape[0] - nfft) // hop + 1, nfft), (hop * step, step),
+                      writeable=False)
+    real = not np.iscomplexobj(buf)
+    tapered = segs * window.astype(buf.real.dtype)
+    spec = (fft.rfft if real else fft.fft)(tapered, axis=1, overwrite_x=True)
+    parts = np.square(spec.view(spec.real.dtype))          # re^2, im^2 interleaved
+    power = (parts[:, 0::2] + parts[:, 1::2]).astype(np.float64)
+    if real:
+        power = np.concatenate((power, power[:, (nfft - 1) // 2:0:-1]), axis=1)
     return power, SpectrumState(buf[segs.shape[0] * hop:].copy())
 
 

@@ -12,6 +12,7 @@ import math
 import numpy as np
 import pytest
 from scipy import integrate, optimize, stats
+from scipy.special import i0e
 
 from blocks._energy_detect import (
     cfar_factor,
@@ -73,6 +74,15 @@ def test_rice_threshold_equates_the_two_densities(snr: float) -> None:
 
     r_ref = optimize.brentq(gap, 1e-9, 2 * math.sqrt(snr) + 3)
     assert rice_threshold(snr * noise, noise) == pytest.approx(r_ref**2, rel=1e-9)
+
+
+def test_rice_threshold_steps_reach_double_precision_over_the_snr_range() -> None:
+    # Reference: scipy.optimize.brentq on log I0(x) = A^2 / sigma^2 (scipy.special.i0e), the
+    # equation rice_threshold solves with a fixed number of Newton steps; T = (x s)^2 / (4 A^2).
+    for gamma in np.geomspace(1e-3, 1e12, 61):
+        x = optimize.brentq(lambda v, g=gamma: math.log(i0e(v)) + v - g, 1e-9,
+                            2 * math.sqrt(gamma) + gamma + 10, xtol=1e-300, rtol=1e-15)
+        assert rice_threshold(gamma, 1.0) == pytest.approx(x * x / (4 * gamma), rel=1e-12)
 
 
 def test_rice_threshold_tends_to_quarter_power_at_high_snr() -> None:

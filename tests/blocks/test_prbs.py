@@ -8,6 +8,7 @@ from hypothesis import strategies as st
 from blocks._prbs import (
     PRBS_NAMES,
     PRBS_POLYNOMIALS,
+    TABLE_DEGREE,
     prbs_expected,
     prbs_sequence,
     prbs_state_after,
@@ -142,6 +143,23 @@ def test_chunked_generation_equals_one_shot(name, sizes):
         parts.append(piece)
     np.testing.assert_array_equal(np.concatenate(parts), whole)
     assert state == end_whole
+
+
+@pytest.mark.parametrize("name", [n for n in PRBS_NAMES
+                                  if PRBS_POLYNOMIALS[n].degree <= TABLE_DEGREE])
+def test_tabulated_patterns_run_through_their_period_like_the_shift_register(name):
+    # The patterns kept as a table: pieces that start anywhere in the period, wrap round its
+    # end and span several periods match the per-bit register over 2.2 periods.
+    degree, tap, inverted = O150[name]
+    period = PRBS_POLYNOMIALS[name].period
+    total = int(2.2 * period)
+    want = shift_register_bits(degree, tap, inverted, total)
+    sizes = [period - 5, 3, period + 10, total]
+    state, parts = None, []
+    for size in sizes:
+        piece, state = prbs_sequence(name, min(size, total - sum(map(len, parts))), state)
+        parts.append(piece)
+    np.testing.assert_array_equal(np.concatenate(parts), want)
 
 
 @pytest.mark.parametrize("name", PRBS_NAMES)

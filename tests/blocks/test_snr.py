@@ -12,6 +12,8 @@ import math
 
 import numpy as np
 import pytest
+from scipy.optimize import minimize
+from scipy.special import i0e
 from scipy.stats import ncx2
 
 from blocks._fsk_detect import tone_matrix
@@ -95,6 +97,45 @@ def test_ook_level_fit_finds_the_on_energy_and_the_noise_power(ebn0_db):
     signal, noise = np.mean(fits, axis=0)
     assert 10 * math.log10(signal / 2 / noise) == pytest.approx(ebn0_db, abs=0.5)
     assert noise == pytest.approx(1.0, rel=0.1)
+
+
+def mixture_loglik(z: np.ndarray, signal: float, noise: float, fraction: float) -> float:
+    """Log-likelihood of the exponential / Rice mixture of OOK energies, with scipy.special.i0e.
+
+    Off: z ~ exp(-z/s)/s; on: z ~ exp(-(z + A^2)/s) I0(2 A sqrt(z)/s)/s (Proakis & Salehi,
+    Digital Communications, 5th ed., 2008, sec. 2.3).
+    """
+    k = 2.0 * math.sqrt(signal) * np.sqrt(z) / noise
+    off = (1 - fraction) * np.exp(-z / noise) / noise
+    on = fraction * np.exp(k - (z + signal) / noise) * i0e(k) / noise
+    return float(np.sum(np.log(off + on)))
+
+
+@pytest.mark.parametrize(("ebn0_db", "fixed"), [(3.0, 0.5), (3.0, None), (12.0, 0.5)])
+def test_ook_level_fit_is_the_maximum_of_the_likelihood(ebn0_db, fixed):
+    # Reference: scipy.optimize.minimize (Nelder-Mead) on the mixture likelihood written out
+    # with scipy.special.i0e, from the same start the fit takes by default (the energy
+    # detector's levels); the fit's default tolerance is 1e-4.
+    rng = np.random.default_rng(int(ebn0_db))
+    on = 2 * 10 ** (ebn0_db / 10)
+    bits = rng.integers(0, 2, 2048)
+    y = math.sqrt(on) * bits * np.exp(2j * np.pi * rng.random(2048)) \
+        + complex_noise(rng, 2048, 1.0)
+    z = np.abs(y) ** 2
+    fit = ook_level_fit(z, None, fixed)
+    if fixed is None:
+        best = minimize(lambda t: -mixture_loglik(z, *t), [on, 1.0, 0.5], method="Nelder-Mead",
+                        options={"xatol": 1e-10, "fatol": 1e-12, "maxiter": 10_000}).x
+        assert fit.on_fraction == pytest.approx(best[2], rel=1e-4)
+    else:
+        best = minimize(lambda t: -mixture_loglik(z, *t, fixed), [on, 1.0], method="Nelder-Mead",
+                        options={"xatol": 1e-10, "fatol": 1e-12, "maxiter": 10_000}).x
+    assert fit.signal == pytest.approx(best[0], rel=1e-4)
+    assert fit.noise == pytest.approx(best[1], rel=1e-4)
+    # started from the fit itself, one more window's worth of work changes nothing
+    again = ook_level_fit(z, fit, fixed)
+    assert again.iterations <= 2
+    assert again.signal == pytest.approx(fit.signal, rel=1e-4)
 
 
 def test_ook_level_fit_can_fit_the_on_fraction_too():

@@ -25,7 +25,7 @@ def welch_average(x: np.ndarray, nfft: int, hop: int, pieces=None) -> np.ndarray
 
 
 @pytest.mark.parametrize("dtype", [np.complex64, np.float32])
-@pytest.mark.parametrize(("nfft", "hop"), [(256, 128), (128, 128), (100, 33)])
+@pytest.mark.parametrize(("nfft", "hop"), [(256, 128), (128, 128), (100, 33), (101, 40)])
 def test_equal_weight_average_is_scipy_welch(dtype, nfft, hop):
     # scipy.signal.welch: Hann (periodic) window, density scaling, two-sided, no detrending.
     x = SIGNAL.real.astype(dtype) if dtype == np.float32 else SIGNAL

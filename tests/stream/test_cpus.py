@@ -98,5 +98,5 @@ def test_the_runner_argument_overrides_the_file():
 
 
 def test_a_bad_cpus_key_is_a_pipeline_error_naming_the_key():
-    with pytest.raises(PipelineError, match="pipeline.cpus"):
+    with pytest.raises(PipelineError, match=r"pipeline\.cpus"):
         pipeline_from_dict(_doc(cpus="many"))
