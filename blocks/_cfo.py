@@ -23,7 +23,8 @@ import numpy as np
 
 from blocks._fir import FirState, fir_filter
 from blocks._pulses import rrc_taps
-from blocks._windows import WindowState, window_sums
+from blocks._scratch import work_array
+from blocks._windows import WindowState, sum_windows
 
 __all__ = [
     "CorrelatorState",
@@ -146,7 +147,7 @@ class CorrelatorState:
     Attributes
     ----------
     prefilter : FirState or None
-        Prefilter history.
+        Prefilter history (None without a prefilter).
     tail : numpy.ndarray
         The last ``L`` prefiltered samples.
     window : WindowState
@@ -183,15 +184,35 @@ def windowed_lag_correlation(x: np.ndarray, design: LagDesign, window: int,
     state : CorrelatorState
         State for the next chunk; ``state.window.partial`` is the sum of the incomplete
         window.
+
+    Notes
+    -----
+    The products are never formed: each window (or piece of one) is one conjugated dot
+    product (BLAS ``zdotc``) of the prefiltered samples with themselves ``L`` later, taken in
+    complex128 so that the sum over a long window accumulates in float64.
     """
     lag = design.lag
     if state is None:
         state = CorrelatorState(None, np.zeros(lag, dtype=np.complex64), WindowState())
-    y, fir_state = fir_filter(x, design.taps, state.prefilter)
-    ext = np.concatenate((state.tail, y))
-    products = ext[lag:] * np.conj(ext[:-lag])
-    sums, win = window_sums(products, window, state.window)
-    return sums, CorrelatorState(fir_state, ext[ext.shape[0] - lag:].copy(), win)
+    if design.taps.shape[0] == 1 and design.taps[0] == 1:
+        y, fir_state = np.asarray(x, dtype=np.complex64), None      # no prefilter (L == 1)
+    else:
+        y, fir_state = fir_filter(x, design.taps, state.prefilter)
+    n = y.shape[0]
+    ext = work_array("cfo.ext", lag + n, np.complex128)
+    ext[:lag] = state.tail
+    ext[lag:] = y
+    earlier, later = ext[:n], ext[lag:]               # y[n - L] and y[n]
+
+    def segment(a: int, b: int) -> complex:
+        return complex(np.vdot(earlier[a:b], later[a:b]))
+
+    def whole(a: int, k: int) -> np.ndarray:
+        return np.array([segment(a + i * window, a + (i + 1) * window) for i in range(k)])
+
+    sums, win = sum_windows(n, window, segment, whole, state.window)
+    tail = ext[n:].astype(np.complex64)
+    return sums, CorrelatorState(fir_state, tail, win)
 
 
 def offset_from_correlation(correlation: complex | np.ndarray, lag: int,

@@ -61,8 +61,8 @@ def differential_products(y: np.ndarray, last: np.ndarray | None = None,
 def _bit_groups(steps: tuple[float, ...]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Conjugate constellation of the steps and, per bit, the codes that carry a 1 or a 0.
 
-    The code groups are index arrays of shape (bits, codes per group), so one gather and one
-    maximum over the last axis give every bit's max-log term at once.
+    The code groups are index arrays of shape (bits, codes per group): each bit's max-log term
+    is the larger projection of each group.
     """
     points = np.exp(-1j * np.asarray(steps)).astype(np.complex64)
     codes = np.arange(len(steps))
@@ -72,6 +72,7 @@ def _bit_groups(steps: tuple[float, ...]) -> tuple[np.ndarray, np.ndarray, np.nd
 
 
 _DQPSK_POINTS, _DQPSK_ONES, _DQPSK_ZEROS = _bit_groups(DQPSK_STEPS)
+_DQPSK_PROJECTION = np.vstack((_DQPSK_POINTS.real, -_DQPSK_POINTS.imag)).astype(np.float32)
 
 
 def dpsk_detect(y: np.ndarray, modulation: str, state: np.ndarray | None = None,
@@ -117,9 +118,15 @@ def dpsk_detect(y: np.ndarray, modulation: str, state: np.ndarray | None = None,
     if modulation == "dbpsk":
         soft = -2.0 * d.real / safe
     elif modulation == "dqpsk":
-        proj = (d[:, None] * _DQPSK_POINTS[None, :]).real.astype(np.float64)
-        soft = proj[:, _DQPSK_ONES].max(axis=2) - proj[:, _DQPSK_ZEROS].max(axis=2)
-        soft = (np.sqrt(2.0) * soft / safe[:, None]).ravel()
+        # Re(d exp(-j phi_c)) for the four codes at once: (Re d, Im d) @ (cos phi_c, sin phi_c)
+        proj = d.view(np.float32).reshape(-1, 2) @ _DQPSK_PROJECTION
+        scale = np.sqrt(2.0) / safe
+        soft = np.empty((d.shape[0], 2))
+        for b in range(2):
+            ones = np.maximum(proj[:, _DQPSK_ONES[b, 0]], proj[:, _DQPSK_ONES[b, 1]])
+            ones -= np.maximum(proj[:, _DQPSK_ZEROS[b, 0]], proj[:, _DQPSK_ZEROS[b, 1]])
+            np.multiply(ones, scale, out=soft[:, b])
+        soft = soft.reshape(-1)
     else:
         raise ValueError(f"modulation must be 'dbpsk' or 'dqpsk' (got {modulation!r})")
     return (soft > 0).astype(np.uint8), soft.astype(np.float32), last

@@ -7,11 +7,12 @@ estimates, do not depend on how the stream is cut into chunks.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["WindowState", "window_sums"]
+__all__ = ["WindowState", "sum_windows"]
 
 
 @dataclass(frozen=True)
@@ -30,16 +31,22 @@ class WindowState:
     partial: complex = 0j
 
 
-def window_sums(values: np.ndarray, window: int, state: WindowState | None = None,
+def sum_windows(count: int, window: int, segment: Callable[[int, int], complex],
+                whole: Callable[[int, int], np.ndarray], state: WindowState | None = None,
                 ) -> tuple[np.ndarray, WindowState]:
-    """Sum a chunk of per-sample values window by window.
+    """Window by window sums of a chunk of per-sample values, each kernel summing its own way.
 
     Parameters
     ----------
-    values : numpy.ndarray
-        Per-sample values of this chunk (real or complex).
+    count : int
+        Number of values in this chunk.
     window : int
         Window length ``W`` in samples (>= 1).
+    segment : callable
+        ``segment(a, b)``: the sum of the chunk's values ``a .. b - 1`` (``0 <= b - a <= W``).
+    whole : callable
+        ``whole(a, k)``: the sums of the ``k >= 1`` consecutive whole windows that start at
+        chunk offset ``a``, as an array of ``k``.
     state : WindowState, optional
         State from the previous call; None at the start of a stream.
 
@@ -52,18 +59,22 @@ def window_sums(values: np.ndarray, window: int, state: WindowState | None = Non
 
     Notes
     -----
-    Sums are accumulated in float64, one ``numpy.add.reduceat`` per chunk.
+    The chunk's first values close the open window, whole windows follow, and the rest opens
+    the next one; a kernel gives the sums of its per-sample quantity without forming it (a
+    dot product, a matrix product of the windows as rows).
     """
     if window < 1:
         raise ValueError(f"window must be >= 1 (got {window})")
     if state is None:
         state = WindowState()
-    v = np.asarray(values).astype(np.complex128, copy=False)
-    edges = np.arange(window - state.filled, v.shape[0] + 1, window)
-    if not edges.shape[0]:
-        return (np.zeros(0, dtype=np.complex128),
-                WindowState(state.filled + v.shape[0], state.partial + complex(v.sum())))
-    sums = np.add.reduceat(v[: edges[-1]], np.concatenate(([0], edges[:-1])))
-    sums[0] += state.partial
-    rest = v[edges[-1]:]
-    return sums, WindowState(rest.shape[0], complex(rest.sum()))
+    first = window - state.filled
+    if count < first:
+        partial = state.partial + (segment(0, count) if count else 0j)
+        return np.zeros(0, dtype=np.complex128), WindowState(state.filled + count, partial)
+    full = (count - first) // window
+    done = first + full * window
+    sums = np.empty(full + 1, dtype=np.complex128)
+    sums[0] = state.partial + segment(0, first)
+    if full:
+        sums[1:] = whole(first, full)
+    return sums, WindowState(count - done, segment(done, count) if count > done else 0j)

@@ -20,7 +20,8 @@ from blocks._cfo import (
     offset_from_correlation,
     windowed_lag_correlation,
 )
-from blocks._mixer import frequency_shift, tone_row
+from blocks._mixer import oscillator, tone_row
+from blocks._scratch import work_array
 from blocks._timing import (
     LineState,
     ToneMetricState,
@@ -80,8 +81,13 @@ class Cfo(Block):
         self._rate = rate
         self._window = max(1, round(self.p.window_symbols * rate / rs))
         self._corr: CorrelatorState | None = None
+        # Chunks not yet released; the last _fresh of them (_fresh_count samples) are not yet
+        # correlated: they are correlated together once they complete a window, so the
+        # prefilter runs on about a window at a time whatever the chunk size.
         self._held: list[np.ndarray] = []
         self._held_count = 0
+        self._fresh = 0
+        self._fresh_count = 0
         self._phase = 0.0
         self._estimate = 0.0
         self._windows = 0
@@ -91,10 +97,24 @@ class Cfo(Block):
     def process(self, chunk: Chunk) -> None:
         require_finite(self, chunk)
         self._notes.add(chunk.annotations)
-        sums, self._corr = windowed_lag_correlation(chunk.samples, self._design, self._window,
-                                                    self._corr)
         self._held.append(chunk.samples)
         self._held_count += len(chunk)
+        self._fresh += 1
+        self._fresh_count += len(chunk)
+        filled = self._corr.window.filled if self._corr is not None else 0
+        if filled + self._fresh_count >= self._window:
+            self._correlate()
+
+    def _correlate(self) -> None:
+        """Correlate the fresh samples; derotate and emit each window they complete."""
+        fresh = self._held[len(self._held) - self._fresh:]
+        if len(fresh) == 1:
+            x = fresh[0]
+        else:
+            x = np.concatenate(fresh, out=work_array("cfo.fresh", self._fresh_count,
+                                                     np.complex64))
+        self._fresh = self._fresh_count = 0
+        sums, self._corr = windowed_lag_correlation(x, self._design, self._window, self._corr)
         for r in sums:
             self._estimate = float(offset_from_correlation(r, self._design.lag, self._rate))
             self._windows += 1
@@ -102,6 +122,8 @@ class Cfo(Block):
 
     def finish(self) -> None:
         """Correct the last, incomplete window with its own estimate (if it has one)."""
+        if self._fresh:
+            self._correlate()
         if self._corr is not None and self._corr.window.partial != 0:
             self._estimate = float(offset_from_correlation(self._corr.window.partial,
                                                            self._design.lag, self._rate))
@@ -112,12 +134,21 @@ class Cfo(Block):
         """Derotate and emit the oldest ``count`` held samples with the current estimate."""
         if count == 0:
             return
-        held = np.concatenate(self._held) if len(self._held) > 1 else self._held[0]
-        out, rest = held[:count], held[count:]
-        self._held = [rest] if rest.shape[0] else []
-        self._held_count = rest.shape[0]
         cycles = -self._estimate / self._rate
-        y, self._phase = frequency_shift(out, cycles, self._phase, tone_row(cycles))
+        # the oscillator, multiplied in place by the held chunks (blocks._mixer.frequency_shift
+        # without joining them first)
+        y, self._phase = oscillator(count, cycles, self._phase, tone_row(cycles))
+        at = 0
+        while at < count:
+            piece = self._held[0]
+            take = min(piece.shape[0], count - at)
+            np.multiply(y[at:at + take], piece[:take], out=y[at:at + take])
+            if take < piece.shape[0]:
+                self._held[0] = piece[take:]
+            else:
+                del self._held[0]
+            at += take
+        self._held_count -= count
         self.emit(y, annotations=self._notes.due(self.position() + y.shape[0]))
 
     def readings(self) -> dict[str, Any]:
@@ -171,6 +202,8 @@ class Timing(Block):
         s_out = self.p.samples_per_symbol_out
         fraction = (np.arange(s_out) + 0.5) / s_out
         self._offsets = fraction * sps + (0.5 - sps if tones else -0.5 * sps)
+        # (instant, 1) @ _spread = instant + offsets, row by row (exact: products with 1)
+        self._spread = np.vstack((np.ones(s_out), self._offsets))
         self._sps = sps
         self._tones = tones
         self._cycles = rs / rate
@@ -178,7 +211,11 @@ class Timing(Block):
         self._window = max(1, round(self.p.window_symbols * sps))
         self._line: LineState | None = None
         self._metric_state: ToneMetricState | None = None
-        self._buf = np.zeros(0, np.complex64)
+        # Input not yet done with: self._buf is the first _fill samples of _store (reused from
+        # chunk to chunk), absolute index _buf_start onwards.
+        self._store = np.zeros(0, np.complex64)
+        self._fill = 0
+        self._buf = self._store
         self._buf_start = 0
         self._consumed = 0
         self._knots: list[tuple[float, float]] = []
@@ -186,8 +223,8 @@ class Timing(Block):
         self._seg_start = 1.0 - float(self._offsets[0])
         self._seg_theta: float | None = None
         self._next_symbol: int | None = None
-        # Strobe instants of the segments found in this call, interpolated together by _flush;
-        # input before _keep_from (absolute) is no longer needed after that.
+        # Strobe instants (one per symbol) of the segments found in this call, interpolated
+        # together by _flush; input before _keep_from (absolute) is no longer needed after that.
         self._when: list[np.ndarray] = []
         self._keep_from = 0
         self._symbols = 0
@@ -196,7 +233,11 @@ class Timing(Block):
 
     def _metric(self, x: np.ndarray) -> np.ndarray:
         if not self._tones:
-            return (x.real.astype(np.float64) ** 2 + x.imag.astype(np.float64) ** 2)
+            pairs = x.view(np.float32)
+            squares = np.multiply(pairs, pairs, dtype=np.float64,
+                                  out=work_array("timing.squares", pairs.shape[0], np.float64))
+            return np.add(squares[0::2], squares[1::2],
+                          out=work_array("timing.metric", x.shape[0], np.float64))
         z, self._metric_state = tone_metric(x, self.p.deviation_hz / self.input_specs["in"].rate,
                                             max(1, round(self._sps)), self._metric_state)
         return z
@@ -205,15 +246,26 @@ class Timing(Block):
         require_finite(self, chunk)
         self._notes.add(chunk.annotations)
         x = chunk.samples
-        self._buf = np.concatenate((self._buf, x))
+        self._append(x)
         first_window = self._consumed // self._window
         self._consumed += x.shape[0]
         sums, self._line = spectral_line(self._metric(x), self._cycles, self._window,
                                          self._line, self._row)
-        for i, line in enumerate(sums):
-            centre = (first_window + i) * self._window + (self._window - 1) / 2.0
-            self._add_knot(centre, float(timing_phase(line)))
+        if sums.shape[0]:
+            centres = (first_window + np.arange(sums.shape[0])) * self._window \
+                + (self._window - 1) / 2.0
+            self._add_knots(centres, timing_phase(sums))
         self._flush()
+
+    def _append(self, x: np.ndarray) -> None:
+        need = self._fill + x.shape[0]
+        if need > self._store.shape[0]:
+            grown = np.empty(max(need, 2 * self._store.shape[0]), np.complex64)
+            grown[:self._fill] = self._buf
+            self._store = grown
+        self._store[self._fill:need] = x
+        self._fill = need
+        self._buf = self._store[:need]
 
     def finish(self) -> None:
         """Use the incomplete last window, then strobe up to the end of the input."""
@@ -221,52 +273,69 @@ class Timing(Block):
                 not self._knots or 2 * self._line.window.filled >= self._window):
             filled = self._line.window.filled
             end = self._buf_start + self._buf.shape[0]
-            self._add_knot(end - (filled + 1) / 2.0, float(timing_phase(
-                self._line.window.partial)))
+            self._add_knots(np.array([end - (filled + 1) / 2.0]),
+                            np.array([timing_phase(self._line.window.partial)]))
         if self._knots:
             last = self._buf_start + self._buf.shape[0] - 3 - float(self._offsets[-1])
             if last > self._seg_start:
-                self._strobe(last, self._knots[-1][1])
+                self._strobe(np.array([last]), np.array([self._knots[-1][1]]))
         self._flush()
         self.emit(np.zeros(0, np.complex64), annotations=self._notes.rest(self.position()))
 
-    def _add_knot(self, centre: float, theta: float) -> None:
+    def _add_knots(self, centres: np.ndarray, thetas: np.ndarray) -> None:
+        """Unwrap the window phases onto the track and strobe up to the new knots."""
         previous = self._knots[-1][1] if self._knots else None
-        theta = unwrap_phase(theta, previous)
-        self._knots.append((centre, theta))
+        track = np.empty(thetas.shape[0])
+        for i, theta in enumerate(thetas.tolist()):
+            previous = track[i] = unwrap_phase(theta, previous)
+        self._knots.extend(zip(centres.tolist(), track.tolist(), strict=True))
         del self._knots[:-_CLOCK_FIT_KNOTS]
-        if centre > self._seg_start:
-            self._strobe(centre, theta)
+        ahead = centres > self._seg_start
+        if ahead.any():
+            self._strobe(centres[ahead], track[ahead])
 
-    def _strobe(self, end: float, theta_end: float) -> None:
-        """Schedule the symbols whose strobes lie between the segment start and ``end``."""
-        theta_start = theta_end if self._seg_theta is None else self._seg_theta
-        first, instants = segment_strobes(self._seg_start, end, theta_start, theta_end,
-                                          self._sps)
+    def _strobe(self, ends: np.ndarray, theta_ends: np.ndarray) -> None:
+        """Schedule the symbols whose strobes lie between the segment start and each end."""
+        theta_start = theta_ends[0] if self._seg_theta is None else self._seg_theta
+        starts = np.concatenate(([self._seg_start], ends[:-1]))
+        first, instants = segment_strobes(starts, ends,
+                                          np.concatenate(([theta_start], theta_ends[:-1])),
+                                          theta_ends, self._sps)
         if self._next_symbol is not None and first != self._next_symbol:
             raise RuntimeError(f"block {self.id!r}: timing track lost continuity "
                                f"(symbol {first}, expected {self._next_symbol})")
         self._next_symbol = first + instants.shape[0]
-        self._seg_start, self._seg_theta = end, theta_end
+        self._seg_start, self._seg_theta = float(ends[-1]), float(theta_ends[-1])
         if not instants.shape[0]:
             return
-        self._when.append((instants[:, None] + self._offsets[None, :]).reshape(-1))
+        self._when.append(instants)
         self._symbols += instants.shape[0]
-        self._keep_from = math.floor(end + self._offsets[0]) - 2
+        # the next strobe lies at or after the last end
+        self._keep_from = math.floor(self._seg_start + self._offsets[0]) - 2
 
     def _flush(self) -> None:
         """Interpolate and emit the scheduled strobes in one go, then drop input done with."""
         if self._when:
-            when = np.concatenate(self._when)
+            instants = np.concatenate(self._when) if len(self._when) > 1 else self._when[0]
             self._when = []
-            y = cubic_interpolate(self._buf, when - self._buf_start)
-            due = self._notes.due(math.floor(when[-1]) + 1)
+            # the output instants relative to the buffer, symbol after symbol
+            rows = np.empty((instants.shape[0], 2))
+            rows[:, 0] = instants - self._buf_start
+            rows[:, 1] = 1.0
+            when = np.matmul(rows, self._spread, out=work_array(
+                "timing.when", (instants.shape[0], self._spread.shape[1]), np.float64)).reshape(-1)
+            y = cubic_interpolate(self._buf, when)
+            due = self._notes.due(self._buf_start + math.floor(when[-1]) + 1)
             start = self.position()
-            notes = tuple(a.moved(start + int(np.searchsorted(when, a.index))) for a in due)
+            notes = tuple(a.moved(start + int(np.searchsorted(when, a.index - self._buf_start)))
+                          for a in due)
             self.emit(y, annotations=notes)
         keep_from = self._keep_from - self._buf_start
         if keep_from > 0:
-            self._buf = self._buf[keep_from:]
+            rest = self._fill - keep_from
+            self._store[:rest] = self._store[keep_from:self._fill]
+            self._fill = rest
+            self._buf = self._store[:rest]
             self._buf_start += keep_from
 
     def readings(self) -> dict[str, Any]:

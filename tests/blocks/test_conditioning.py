@@ -123,3 +123,19 @@ def test_nan_input_is_refused_with_its_index(kind):
     x[77] = np.nan
     with pytest.raises(ValueError, match="input sample 77 is NaN"):
         run_block(make_block(kind, **params.get(kind, {})), [x], FS)
+
+
+@pytest.mark.parametrize("bad", [np.inf, -np.inf, complex(0, np.nan)])
+def test_infinite_input_is_refused_with_its_index(bad):
+    x = X.copy()
+    x[3000] = bad
+    with pytest.raises(ValueError, match="input sample 3000 is NaN or infinite"):
+        run_block(make_block("decimate", factor=2), [x], FS)
+
+
+def test_finite_input_whose_sum_overflows_is_accepted():
+    # The fast check sums the chunk; a sum that overflows float32 (largest value about
+    # 3.4e38, IEEE 754 binary32) must fall back to the sample-by-sample check, not refuse.
+    x = np.full(64, 3e38 + 3e38j, dtype=np.complex64)
+    out, _ = run_block(make_block("dc_block", corner_hz=40.0), [x], FS)
+    assert out["out"].shape == (64,)

@@ -82,3 +82,16 @@ def test_errors_name_the_parameter():
         fir_decimate(X, [1.0], 0)
     with pytest.raises(ValueError, match="cutoff must be in"):
         antialias_taps(2, cutoff=1.5)
+
+
+@settings(max_examples=40, deadline=None)
+@given(cuts=chunk_cuts(len(X)))
+@pytest.mark.parametrize(("numtaps", "factor"), [(10, 1), (25, 1), (41, 1), (101, 5), (13, 3)])
+def test_pieces_give_exactly_the_whole_output(cuts, numtaps, factor):
+    # Every output is summed at the same place of a matrix product of the same shape
+    # whatever the chunking, so pieces reproduce the one-shot output to the last bit.
+    h = RNG.standard_normal(numtaps)
+    whole, _ = fir_decimate(X, h, factor)
+    np.testing.assert_array_equal(run_in_pieces(X, h, factor, cuts), whole)
+    real, _ = fir_decimate(X.real.copy(), h, factor)
+    np.testing.assert_array_equal(run_in_pieces(X.real.copy(), h, factor, cuts), real)

@@ -27,12 +27,14 @@ def circular_distance(a, b):
     return abs((a - b + 0.5) % 1.0 - 0.5)
 
 
-def test_cubic_interpolation_matches_lagrange_polynomial():
+@pytest.mark.parametrize("count", [200, 7])
+def test_cubic_interpolation_matches_lagrange_polynomial(count):
     # Reference: scipy.interpolate.lagrange through the four neighbours m-1 .. m+2
-    # (the third-order Lagrange interpolator of Erup, Gardner & Harris 1993).
+    # (the third-order Lagrange interpolator of Erup, Gardner & Harris 1993); many positions
+    # (differences per input sample) and few (differences per output).
     rng = np.random.default_rng(5)
     x = (rng.standard_normal(50) + 1j * rng.standard_normal(50)).astype(np.complex64)
-    positions = rng.uniform(1, 46.999, 200)
+    positions = rng.uniform(1, 46.999, count)
     got = cubic_interpolate(x, positions)
     for p, g in zip(positions, got, strict=True):
         m = math.floor(p)
@@ -72,10 +74,25 @@ def test_segments_give_every_symbol_once(sps, theta, drift, lengths):
         if expected_k is not None:
             assert first == expected_k
         expected_k = first + t.shape[0]
-        assert np.all((t >= a - 1e-9) & (t < b))
+        assert np.all((t >= a - 1e-9) & (t < b + 1e-9))  # [a, b) to rounding
         k = first + np.arange(t.shape[0])
         theta_t = ta + (tb - ta) * (t - a) / (b - a)
         np.testing.assert_allclose(t, (k + theta_t) * sps, atol=1e-6)
+
+
+@settings(max_examples=50, deadline=None)
+@given(sps=st.floats(2.0, 30.0), theta=st.floats(-3, 3), drift=st.floats(-0.45, 0.45),
+       lengths=st.lists(st.floats(16.0, 400.0), min_size=2, max_size=8))
+def test_segments_in_one_call_equal_the_segments_one_by_one(sps, theta, drift, lengths):
+    # Consecutive segments passed as arrays give the concatenation of the scalar calls.
+    knots = np.concatenate(([0.0], np.cumsum(lengths) * sps))
+    thetas = theta + drift * np.arange(knots.shape[0])
+    first, t = segment_strobes(knots[:-1], knots[1:], thetas[:-1], thetas[1:], sps)
+    parts = [segment_strobes(a, b, ta, tb, sps)
+             for a, b, ta, tb in zip(knots[:-1], knots[1:], thetas[:-1], thetas[1:],
+                                     strict=True)]
+    assert first == parts[0][0]
+    np.testing.assert_array_equal(t, np.concatenate([p[1] for p in parts]))
 
 
 def test_unwrap_phase_picks_the_nearest_turn():
