@@ -14,9 +14,10 @@ from typing import Any
 
 import numpy as np
 
-from blocks._eye import QUANTITIES, eye_opening, histogram_add, trace_instants, trace_quantity
+from blocks._eye import QUANTITIES, eye_opening, histogram_add, trace_quantity, trace_starts
 from blocks._fsk_detect import tone_matrix
 from blocks._mixer import tone_row
+from blocks._scratch import work_array
 from blocks._snr import OokFit, m2m4_powers, ook_level_fit, tone_pair_energies
 from blocks._spectrum import SpectrumState, design_window, periodograms, update_average
 from blocks._timing import LineState, spectral_line, timing_phase, tone_metric
@@ -34,6 +35,9 @@ _AUTO_RANGE = {"envelope": (0.0, 2.5), "differential": (-2.0, 2.0)}
 #: A window whose reference level differs from the held one by more than this factor (in
 #: amplitude) restarts the histogram on a new range.
 _RERANGE = 2.0
+#: Trace values histogrammed per pass, bounding the temporaries of a large chunk (a pass of 512
+#: to 2048 traces of 64 columns measured alike on the project's 2-core test machine, 256 slower).
+_PASS_VALUES = 1 << 16
 _UNITS = {"envelope": "amplitude", "frequency": "Hz", "differential": "power"}
 
 
@@ -101,7 +105,8 @@ class Eye(Block):
         self._row = tone_row(-self._cycles)
         self._window = max(1, round(p.window_symbols * sps))
         self._windows_done = 0
-        self._buf = np.zeros(0, np.complex64)
+        self._store = np.zeros(0, np.complex64)         # reused: no fresh pages per chunk
+        self._buf = self._store                         # held samples, a view of the store
         self._buf_start = 0
         self._pending = np.zeros(0)
         self._counts = np.zeros((p.level_bins, p.time_bins))
@@ -123,93 +128,138 @@ class Eye(Block):
     # -- stream ------------------------------------------------------------------------------
     def process(self, chunk: Chunk) -> None:
         require_finite(self, chunk)
-        self._buf = np.concatenate((self._buf, chunk.samples))
+        self._append(chunk.samples)
         end = self._buf_start + self._buf.shape[0]
-        while (self._windows_done + 1) * self._window <= end:
-            self._place_ready()
-            self._window_done()
-        self._place_ready()
+        self._close_windows(end // self._window - self._windows_done)
         self._trim()
+
+    def _append(self, samples: np.ndarray) -> None:
+        """Hold ``samples`` after the held ones, in the store (grown when too small)."""
+        held, n = self._buf.shape[0], samples.shape[0]
+        if self._store.shape[0] < held + n:
+            self._store = np.empty(2 * (held + n), np.complex64)
+        self._store[:held] = self._buf                  # numpy copies overlapping ranges safely
+        self._store[held:held + n] = samples
+        self._buf = self._store[:held + n]
 
     def finish(self) -> None:
         """Place the traces of the incomplete last window with its own timing estimate."""
         a = self._windows_done * self._window
-        end = self._buf_start + self._buf.shape[0]
-        if end > a:
-            self._place_ready()
-            self._add_traces(self._line(a, end), a, end)
-            self._place_ready()
+        length = self._buf_start + self._buf.shape[0] - a
+        if length > 0:
+            theta, _ = self._timing(a, 1, length)
+            starts, _ = trace_starts(theta, a, length, self._sps, self.p.traces_per_window)
+            self._pending = np.concatenate((self._pending, starts))
+            self._close_windows(0)
         self._pending = np.zeros(0)
 
-    def _line(self, a: int, b: int) -> complex:
-        """Symbol-rate spectral line of the timing metric over absolute samples ``a .. b-1``.
+    def _timing(self, a: int, count: int, length: int) -> tuple[np.ndarray, np.ndarray | None]:
+        """Timing phase of ``count`` windows of ``length`` samples from absolute sample ``a``.
 
-        Computed from the held samples alone (the oscillator phase from the absolute index,
-        the tone metric from the ``length - 1`` samples before ``a``), so it is the same
-        number for any chunking of the input.
+        One symbol-rate spectral line per window, all windows in one call, over the held
+        samples (the oscillator phase from the absolute index, the tone metric with the
+        correlator's samples before ``a``), so the figures do not depend on the chunking (to
+        rounding). Also returns each window's mean of ``|y|^2`` (None for ``frequency``).
         """
-        if self.p.quantity != "frequency":
-            x = self._buf[a - self._buf_start:b - self._buf_start]
-            z = x.real.astype(np.float64) ** 2 + x.imag.astype(np.float64) ** 2
+        off = a - self._buf_start
+        if self.p.quantity == "frequency":
+            span = max(1, round(self._sps))
+            lo = max(0, a - (span - 1))
+            x = self._buf[lo - self._buf_start:off + count * length]
+            z = tone_metric(x, self.p.deviation_hz / self._rate, span)[0][a - lo:]
+            power = None
         else:
-            length = max(1, round(self._sps))
-            lo = max(0, a - (length - 1))
-            x = self._buf[lo - self._buf_start:b - self._buf_start]
-            z = tone_metric(x, self.p.deviation_hz / self._rate, length)[0][a - lo:]
+            pairs = self._buf[off:off + count * length].view(np.float32)
+            squares = work_array("eye.squares", pairs.shape[0], np.float64)
+            np.multiply(pairs, pairs, out=squares)
+            z = power = work_array("eye.power", count * length, np.float64)
+            np.add(squares[0::2], squares[1::2], out=power)     # |y|^2
         start = LineState(WindowState(), (-self._cycles * a) % 1.0)
-        sums, _ = spectral_line(z, self._cycles, b - a, start, self._row)
-        return complex(sums[0])
+        sums, _ = spectral_line(z, self._cycles, length, start, self._row)
+        theta = timing_phase(sums) - self._shift
+        means = None if power is None else power.reshape(count, length).mean(axis=1)
+        return theta, means
 
-    def _window_done(self) -> None:
-        a = self._windows_done * self._window
-        b = a + self._window
-        self._windows_done += 1
-        self._counts *= self.p.decay
-        x = self._buf[a - self._buf_start:b - self._buf_start]
-        mean_power = float(np.mean(x.real.astype(np.float64) ** 2
-                                   + x.imag.astype(np.float64) ** 2))
-        if self.p.quantity != "frequency" and self.p.full_scale is None and mean_power > 0:
-            ref = math.sqrt(mean_power) if self.p.quantity == "envelope" else mean_power
-            ratio = ref / self._reference if self._range is not None else math.inf
-            if self.p.quantity == "differential":
-                ratio = math.sqrt(ratio)
-            if not 1.0 / _RERANGE <= ratio <= _RERANGE:
-                low, high = _AUTO_RANGE[self.p.quantity]
-                self._range, self._reference = (low * ref, high * ref), ref
-                self._counts[:] = 0.0
-                self._traces = 0
-        self._add_traces(self._line(a, b), a, b)
+    def _rerange(self, mean_power: float) -> bool:
+        """Take a new level range if a window's mean power is off the held one (True)."""
+        ref = math.sqrt(mean_power) if self.p.quantity == "envelope" else mean_power
+        ratio = ref / self._reference if self._range is not None else math.inf
+        if self.p.quantity == "differential":
+            ratio = math.sqrt(ratio)
+        if 1.0 / _RERANGE <= ratio <= _RERANGE:
+            return False
+        low, high = _AUTO_RANGE[self.p.quantity]
+        self._range, self._reference = (low * ref, high * ref), ref
+        return True
 
-    def _add_traces(self, line: complex, a: int, b: int) -> None:
-        """Queue the traces whose first strobe lies in absolute samples ``a .. b-1``."""
-        theta = float(timing_phase(line)) - self._shift
-        first = math.ceil(a / self._sps - theta)
-        stop = math.ceil(b / self._sps - theta)
-        k = np.arange(first + (first % 2), stop, 2, dtype=np.float64)
-        most = self.p.traces_per_window
-        if most and k.shape[0] > most:
-            k = k[np.linspace(0, k.shape[0] - 1, most).round().astype(np.int64)]
-        starts = (k + theta) * self._sps - 0.5 * self._sps
-        self._pending = np.concatenate((self._pending, starts))
+    def _close_windows(self, count: int) -> None:
+        """Close the next ``count`` whole windows and histogram every queued trace now ready.
 
-    def _place_ready(self) -> None:
-        """Histogram every queued trace whose samples have all arrived."""
-        if not self._pending.shape[0] or self._range is None:
+        The same as closing them one at a time (age the histogram by ``decay``, restart it
+        on a new level range if the window's level moved, queue the window's traces, and
+        histogram each queued trace once its samples have all arrived, which is before the
+        next window closes): a trace queued with window ``s`` of the ``count`` (``s = -1``:
+        queued earlier) is added with weight ``decay ** (count - 1 - s)`` and the held
+        histogram is aged by ``decay ** count``, unless a restart at window ``r`` drops the
+        histogram and the traces of the windows before ``r``.
+        """
+        p = self.p
+        starts = self._pending
+        slots = np.full(starts.shape[0], -1, dtype=np.int64)
+        ranges = [self._range]                          # ranges[s + 1]: in force for window s
+        restart: int | None = None
+        if count:
+            a = self._windows_done * self._window
+            theta, means = self._timing(a, count, self._window)
+            auto = means is not None and p.full_scale is None
+            for s, mean in enumerate(means.tolist() if auto else [0.0] * count):
+                if mean > 0 and self._rerange(mean):
+                    restart = s
+                ranges.append(self._range)
+            self._windows_done += count
+            new, windows = trace_starts(theta, a, self._window, self._sps,
+                                        p.traces_per_window)
+            starts = np.concatenate((starts, new))
+            slots = np.concatenate((slots, windows))
+        ranged = [s for s in range(-1, count) if ranges[s + 1] is not None]
+        if not ranged:                                  # no level range yet: keep them all
+            self._pending = starts
             return
+        # traces queued before the first range go with the window that set it
+        np.maximum(slots, ranged[0], out=slots)
         end = self._buf_start + self._buf.shape[0]
-        last = self._pending + 2.0 * self._sps + self._advance
-        ready = last <= end - 3
-        starts = self._pending[ready]
-        self._pending = self._pending[~ready]
+        ready = starts + 2.0 * self._sps + self._advance <= end - 3
+        self._pending = starts[~ready]
+        starts, slots = starts[ready], slots[ready]
         # stream start: no history before the first sample
-        starts = starts[starts + self._advance - self._lag >= self._buf_start + 1]
-        if not starts.shape[0]:
-            return
-        where = (trace_instants(starts, self._sps, self.p.time_bins) + self._advance
-                 - self._buf_start)
-        values = trace_quantity(self._buf, where, self.p.quantity, self._lag, self._rate)
-        self._outside += histogram_add(self._counts, values, *self._range)
-        self._traces += starts.shape[0]
+        keep = starts + self._advance - self._lag >= self._buf_start + 1
+        starts, slots = starts[keep], slots[keep]
+        if restart is not None:
+            self._counts[:] = 0.0
+            self._traces = 0
+        elif count and p.decay != 1.0:
+            self._counts *= p.decay ** count
+        live = slots >= (restart if restart is not None else -1)
+        weights = None if p.decay == 1.0 else p.decay ** (count - 1 - slots)
+        step = max(1, _PASS_VALUES // p.time_bins)
+        for at in range(0, starts.shape[0], step):
+            part = slice(at, at + step)
+            values = trace_quantity(self._buf, starts[part] + self._advance - self._buf_start,
+                                    self._sps, p.time_bins, p.quantity, self._lag, self._rate)
+            if not live[part].all():
+                self._drop(values, slots[part], live[part], ranges)
+                values = values[live[part]]
+            w = None if weights is None else weights[part][live[part]]
+            # the traces kept all go with the range in force after the last restart
+            self._outside += histogram_add(self._counts, values, *ranges[-1], w)
+        self._traces += int(np.count_nonzero(live))
+
+    def _drop(self, values: np.ndarray, slots: np.ndarray, live: np.ndarray,
+              ranges: list[tuple[float, float] | None]) -> None:
+        """Count what falls outside the range of traces a later restart drops."""
+        for s in np.unique(slots[~live]).tolist():
+            scratch = np.zeros_like(self._counts)
+            self._outside += histogram_add(scratch, values[slots == s], *ranges[s + 1])
 
     def _trim(self) -> None:
         upcoming = self._windows_done * self._window - 0.5 * self._sps

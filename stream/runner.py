@@ -28,6 +28,7 @@ from stream.errors import BlockFailed, LinkClosed
 from stream.frame import Message, MessageKind
 from stream.graph import Pipeline
 from stream.link import Inlet, LinkCounters, Outlet, open_link
+from stream.memory import keep_freed_memory
 from stream.parts import PartPlan
 
 __all__ = ["Runner"]
@@ -131,6 +132,7 @@ class Runner:
             The summary: ``{"event": "summary", "reason": ..., "seconds": ..., "blocks": ...,
             "links": ...}`` (plus ``"error"`` when a block failed).
         """
+        keep_freed_memory()
         ctx = zmq.Context()
         # every block has its own thread already: BLAS splitting a small product over more
         # threads only adds contention (measured up to 20x slower on a loaded 2-core machine)

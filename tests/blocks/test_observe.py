@@ -170,18 +170,80 @@ RNG = np.random.default_rng(12)
 EYE_SIGNAL = rect_symbols(RNG, 1_200, 6.3, np.array([0.0, 1.0]), 0.05)
 
 
+def fsk_tones(rng: np.random.Generator, n_symbols: int, sps: float, deviation: float,
+              rate: float, noise: float) -> np.ndarray:
+    """Continuous-phase 2-FSK at +/- ``deviation`` (rectangular frequency pulses), in noise."""
+    n = int(n_symbols * sps)
+    f = deviation * (2 * rng.integers(0, 2, n_symbols) - 1)[(np.arange(n) / sps).astype(int)]
+    x = np.exp(2j * np.pi * np.cumsum(f) / rate + 0.4j)
+    return (x + noise * (rng.normal(size=n) + 1j * rng.normal(size=n))).astype(np.complex64)
+
+
+EYE_RNG = np.random.default_rng(21)
+#: On-off symbols whose amplitude triples at the start of window 9 (windows of 64 symbols at
+#: 6.3 samples per symbol: 403 samples), where the eye restarts on a new level range.
+STEPPED = rect_symbols(EYE_RNG, 1_200, 6.3, np.array([0.0, 1.0]), 0.05)
+STEPPED[9 * 403:] *= 3
+EYE_CASES = {
+    "envelope": ({}, EYE_SIGNAL),
+    "stepped envelope": ({}, STEPPED),
+    "differential": ({"quantity": "differential"}, STEPPED),
+    "frequency": ({"quantity": "frequency", "deviation_hz": 1_000.0},
+                  fsk_tones(EYE_RNG, 1_200, 6.3, 1_000.0, 6_300.0, 0.1)),
+}
+
+
+@pytest.mark.parametrize("quantity", list(EYE_CASES))
 @settings(max_examples=12, deadline=None)
 @given(cuts=chunk_cuts(len(EYE_SIGNAL)))
-def test_eye_does_not_depend_on_chunking(cuts):
+def test_eye_does_not_depend_on_chunking(quantity, cuts):
+    # Chunks shorter than a window close one window at a time; the whole signal closes all
+    # of them in one pass (their traces weighted by the aging still to come): same figures.
+    params, signal = EYE_CASES[quantity]
+
     def views(pieces):
-        block = make_block("eye", symbol_rate=1_000.0, window_symbols=64, decay=0.9)
+        block = make_block("eye", symbol_rate=1_000.0, window_symbols=64, decay=0.9, **params)
         run_block(block, pieces, 6_300.0)
         return block.views(), block.readings()
 
-    whole, parts = views([EYE_SIGNAL]), views(split(EYE_SIGNAL, cuts))
+    whole, parts = views([signal]), views(split(signal, cuts))
     np.testing.assert_allclose(parts[0]["counts"], whole[0]["counts"], atol=1e-9)
+    assert parts[0]["levels"] == pytest.approx(whole[0]["levels"], rel=1e-12)
     assert parts[1] == pytest.approx(whole[1], rel=1e-9)
-    assert whole[1]["eye_traces"] > 500
+    assert whole[1]["eye_traces"] > 250
+
+
+def test_eye_ages_the_histogram_once_per_window():
+    # decay 1/2: a trace weighs 2**-k after k more windows closed (the parameter's meaning).
+    # 18 whole windows of 64 symbols give 32 traces each (every even strobe) and the last part
+    # window the rest, which no window ages: the 64 columns hold
+    # 64 * (32 * (1 + 1/2 + ... + 2**-17) + rest) (the first trace may miss for want of
+    # history before the stream's first sample).
+    block = make_block("eye", symbol_rate=1_000.0, window_symbols=64, decay=0.5)
+    run_block(block, [EYE_SIGNAL], 6_300.0)
+    got = block.readings()
+    assert got["eye_outside"] == 0
+    rest = got["eye_traces"] - 18 * 32
+    want = 64 * (32 * (2 - 2.0**-17) + rest)
+    assert np.array(block.views()["counts"]).sum() == pytest.approx(want, abs=64.5)
+
+
+def test_eye_restarts_its_histogram_when_the_level_moves():
+    # After the on amplitude steps from 1 to 3 the histogram holds only the traces since the
+    # restart (9 whole windows of 32 and at most 25 of the last part window, one value per
+    # column each), its on level is 3, and its level axis is 0 .. 2.5 times the rms amplitude
+    # of the window that restarted it (Eye.setup).
+    block = make_block("eye", symbol_rate=1_000.0, window_symbols=64, decay=1.0)
+    run_block(block, [STEPPED], 6_300.0)
+    views = block.views()
+    levels, counts = np.array(views["levels"]), np.array(views["counts"])
+    top = levels[-1] + 0.5 * (levels[1] - levels[0])
+    rms = math.sqrt(np.mean(np.abs(STEPPED[9 * 403:10 * 403].astype(np.complex128)) ** 2))
+    assert top == pytest.approx(2.5 * rms, rel=1e-6)
+    assert block.opening()[3] == pytest.approx(3.0, rel=0.03)
+    traces = block.readings()["eye_traces"]
+    assert 9 * 32 <= traces <= 9 * 32 + 25
+    assert counts.sum() == pytest.approx(64 * traces, rel=0.01)
 
 
 FSK_SIGNAL = rect_symbols(RNG, 3_000, 8, np.array([1.0, 1.0j, -1.0, -1.0j]), 0.3)
