@@ -7,8 +7,9 @@ new pages and takes a page fault for every 4 KiB (about a microsecond each). On 
 benchmark runs on this made page faults a larger cost than the arithmetic of some blocks, and
 the OOK reference chain ran about 1.3x faster with the settings below (``tools/bench.py``).
 
-``keep_freed_memory`` raises glibc's mapping threshold to its largest value and keeps free heap
-memory for reuse (``mallopt(3)``: ``M_MMAP_THRESHOLD``, ``M_TRIM_THRESHOLD``, ``M_TOP_PAD``).
+``keep_freed_memory`` raises glibc's mapping threshold to its largest value, keeps free heap
+memory for reuse and gives every thread the same heap (``mallopt(3)``: ``M_MMAP_THRESHOLD``,
+``M_TRIM_THRESHOLD``, ``M_TOP_PAD``, ``M_ARENA_MAX``).
 Memory stays bounded: what is kept is what the run has already used at its peak, and it is
 reused by the next chunks. Elsewhere than glibc it does nothing.
 """
@@ -27,6 +28,7 @@ log = logging.getLogger("phasefree.memory")
 _M_TRIM_THRESHOLD = -1
 _M_TOP_PAD = -2
 _M_MMAP_THRESHOLD = -3
+_M_ARENA_MAX = -8
 
 #: Arrays up to this size come from the heap (glibc's largest mapping threshold on 64-bit).
 MMAP_THRESHOLD = 32 << 20
@@ -34,6 +36,10 @@ MMAP_THRESHOLD = 32 << 20
 TRIM_THRESHOLD = 256 << 20
 #: Extra room asked for whenever a heap grows, so it grows seldom.
 TOP_PAD = 16 << 20
+#: One heap for every thread: the block threads take turns at the interpreter lock anyway, and
+#: with one heap a chunk freed by the thread that consumed it is memory the producing thread
+#: reuses for its next chunk, instead of each thread's heap growing and shrinking on its own.
+ARENA_MAX = 1
 
 _done = False
 
@@ -59,7 +65,7 @@ def keep_freed_memory() -> bool:
     mallopt.restype = ctypes.c_int
     ok = all(mallopt(param, value) == 1 for param, value in (
         (_M_MMAP_THRESHOLD, MMAP_THRESHOLD), (_M_TRIM_THRESHOLD, TRIM_THRESHOLD),
-        (_M_TOP_PAD, TOP_PAD)))
+        (_M_TOP_PAD, TOP_PAD), (_M_ARENA_MAX, ARENA_MAX)))
     if not ok:
         log.debug("mallopt refused a setting; the allocator keeps its defaults")
     _done = ok
