@@ -44,6 +44,9 @@ def test_bench_quick_json_reports_every_figure():
     assert all(positive(v) for v in result["links"].values())
     for key in ("processes", "peak_rss_mb", "rss_growth", "latency_ms"):
         assert positive(result[key]), key
+    split = result["process_msps"]
+    assert "src" in split["front"] and not set(split["front"]) & set(split["back"])
+    assert all(positive(split[k]) for k in ("one", "two", "one_all_cores"))
 
 
 def test_bench_table_names_the_targets():
@@ -58,9 +61,10 @@ def test_bench_table_names_the_targets():
         "overhead": dict.fromkeys(SCHEMES, 40 / 42),
         "realtime_margin": dict.fromkeys(SCHEMES, 40 / 2.4),
         "kernels": {"decimate": 100.0}, "links": {"inproc": 0.8}, "link_msps": {"inproc": 300.0},
-        "processes": 1.6, "process_msps": {"one": 10.0, "two": 16.0}, "peak_rss_mb": 150.0,
-        "rss_growth": 1.01, "latency_ms": 2.5,
+        "processes": 1.6, "process_msps": {"one": 10.0, "two": 16.0, "one_all_cores": 7.0,
+                                           "scheme": "ook", "cut": "cfo -> mf"},
+        "peak_rss_mb": 150.0, "rss_growth": 1.01, "latency_ms": 2.5,
     }
     text = bench.table(result)
     assert "ook" in text and "0.95" in text and "16.7" in text
-    assert "1.60x" in text and "150.0 MB" in text
+    assert "1.60x" in text and "150.0 MB" in text and "cut at cfo -> mf" in text
