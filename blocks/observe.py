@@ -63,8 +63,10 @@ class Eye(Block):
         Param("level_bins", int, 48, low=8, high=1024, doc="rows of the level axis"),
         Param("window_symbols", int, 256, unit="symbols", low=16, high=1 << 16,
               doc="timing estimation window; the histogram ages once per window"),
-        Param("traces_per_window", int, 32, low=0, high=1 << 16,
-              doc="traces drawn per window, evenly spread (0: every trace; fewer cost less)"),
+        Param("traces_per_window", int, 16, low=0, high=1 << 16,
+              doc="traces drawn per window, evenly spread (0: every trace; the default draws "
+                  "1 in 8 two-symbol traces, hundreds in the ageing histogram; each trace "
+                  "costs time)"),
         Param("decay", float, 0.95, low=0, high=1, low_open=True,
               doc="weight kept by the histogram per window (1: never forget)"),
         Param("full_scale", float, None, low=0, low_open=True,

@@ -202,7 +202,8 @@ def test_eye_does_not_depend_on_chunking(quantity, cuts):
     params, signal = EYE_CASES[quantity]
 
     def views(pieces):
-        block = make_block("eye", symbol_rate=1_000.0, window_symbols=64, decay=0.9, **params)
+        block = make_block("eye", symbol_rate=1_000.0, window_symbols=64, decay=0.9,
+                           traces_per_window=32, **params)
         run_block(block, pieces, 6_300.0)
         return block.views(), block.readings()
 
@@ -219,7 +220,8 @@ def test_eye_ages_the_histogram_once_per_window():
     # window the rest, which no window ages: the 64 columns hold
     # 64 * (32 * (1 + 1/2 + ... + 2**-17) + rest) (the first trace may miss for want of
     # history before the stream's first sample).
-    block = make_block("eye", symbol_rate=1_000.0, window_symbols=64, decay=0.5)
+    block = make_block("eye", symbol_rate=1_000.0, window_symbols=64, decay=0.5,
+                       traces_per_window=32)
     run_block(block, [EYE_SIGNAL], 6_300.0)
     got = block.readings()
     assert got["eye_outside"] == 0
@@ -233,7 +235,8 @@ def test_eye_restarts_its_histogram_when_the_level_moves():
     # restart (9 whole windows of 32 and at most 25 of the last part window, one value per
     # column each), its on level is 3, and its level axis is 0 .. 2.5 times the rms amplitude
     # of the window that restarted it (Eye.setup).
-    block = make_block("eye", symbol_rate=1_000.0, window_symbols=64, decay=1.0)
+    block = make_block("eye", symbol_rate=1_000.0, window_symbols=64, decay=1.0,
+                       traces_per_window=32)
     run_block(block, [STEPPED], 6_300.0)
     views = block.views()
     levels, counts = np.array(views["levels"]), np.array(views["counts"])
