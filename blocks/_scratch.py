@@ -20,7 +20,7 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["KEEP_LIMIT", "work_array"]
+__all__ = ["KEEP_LIMIT", "HeldSamples", "work_array"]
 
 #: Largest work array (bytes) that is kept for reuse; bigger requests get a fresh array.
 KEEP_LIMIT = 1 << 23
@@ -62,3 +62,43 @@ def work_array(name: str, shape: int | tuple[int, ...], dtype: np.dtype | type) 
         buf = pool[(name, dtype)] = np.empty(min(max(count, grown), limit), dtype)
     out = buf[:count]
     return out if isinstance(shape, int) else out.reshape(shape)
+
+
+class HeldSamples:
+    """Samples a block holds across chunks, in one array reused from chunk to chunk.
+
+    ``samples`` are the held samples (a view of the array), the first of them at absolute
+    stream index ``start``. ``append`` adds a chunk after them, ``drop_before`` lets go of
+    what is no longer needed; the array is compacted (and grown, doubling) only when a chunk
+    does not fit after the held samples, so a stream does not fault fresh memory in per chunk.
+    """
+
+    def __init__(self, dtype: np.dtype | type = np.complex64) -> None:
+        self._store = np.zeros(0, dtype)
+        self._at = 0
+        self.samples = self._store
+        self.start = 0
+
+    @property
+    def end(self) -> int:
+        """Absolute index one past the last held sample."""
+        return self.start + self.samples.shape[0]
+
+    def append(self, x: np.ndarray) -> None:
+        """Hold ``x`` after the held samples."""
+        held, n = self.samples.shape[0], x.shape[0]
+        if self._at + held + n > self._store.shape[0]:
+            store = self._store if held + n <= self._store.shape[0] \
+                else np.empty(2 * (held + n), self._store.dtype)
+            store[:held] = self.samples                 # numpy copies overlapping ranges safely
+            self._store, self._at = store, 0
+        self._store[self._at + held:self._at + held + n] = x
+        self.samples = self._store[self._at:self._at + held + n]
+
+    def drop_before(self, index: int) -> None:
+        """Let go of the held samples before absolute ``index``."""
+        k = min(index - self.start, self.samples.shape[0])
+        if k > 0:
+            self.samples = self.samples[k:]
+            self._at += k
+            self.start += k

@@ -17,7 +17,7 @@ import numpy as np
 from blocks._eye import QUANTITIES, eye_opening, histogram_add, trace_quantity, trace_starts
 from blocks._fsk_detect import tone_matrix
 from blocks._mixer import tone_row
-from blocks._scratch import work_array
+from blocks._scratch import HeldSamples, work_array
 from blocks._snr import OokFit, m2m4_powers, ook_level_fit, tone_pair_energies
 from blocks._spectrum import SpectrumState, design_window, periodograms, update_average
 from blocks._timing import LineState, spectral_line, timing_phase, tone_metric
@@ -107,9 +107,7 @@ class Eye(Block):
         self._row = tone_row(-self._cycles)
         self._window = max(1, round(p.window_symbols * sps))
         self._windows_done = 0
-        self._store = np.zeros(0, np.complex64)         # reused: no fresh pages per chunk
-        self._buf = self._store                         # held samples, a view of the store
-        self._buf_start = 0
+        self._input = HeldSamples()
         self._pending = np.zeros(0)
         self._counts = np.zeros((p.level_bins, p.time_bins))
         self._range: tuple[float, float] | None = None
@@ -130,24 +128,15 @@ class Eye(Block):
     # -- stream ------------------------------------------------------------------------------
     def process(self, chunk: Chunk) -> None:
         require_finite(self, chunk)
-        self._append(chunk.samples)
-        end = self._buf_start + self._buf.shape[0]
+        self._input.append(chunk.samples)
+        end = self._input.end
         self._close_windows(end // self._window - self._windows_done)
         self._trim()
-
-    def _append(self, samples: np.ndarray) -> None:
-        """Hold ``samples`` after the held ones, in the store (grown when too small)."""
-        held, n = self._buf.shape[0], samples.shape[0]
-        if self._store.shape[0] < held + n:
-            self._store = np.empty(2 * (held + n), np.complex64)
-        self._store[:held] = self._buf                  # numpy copies overlapping ranges safely
-        self._store[held:held + n] = samples
-        self._buf = self._store[:held + n]
 
     def finish(self) -> None:
         """Place the traces of the incomplete last window with its own timing estimate."""
         a = self._windows_done * self._window
-        length = self._buf_start + self._buf.shape[0] - a
+        length = self._input.end - a
         if length > 0:
             theta, _ = self._timing(a, 1, length)
             starts, _ = trace_starts(theta, a, length, self._sps, self.p.traces_per_window)
@@ -163,15 +152,15 @@ class Eye(Block):
         correlator's samples before ``a``), so the figures do not depend on the chunking (to
         rounding). Also returns each window's mean of ``|y|^2`` (None for ``frequency``).
         """
-        off = a - self._buf_start
+        off = a - self._input.start
         if self.p.quantity == "frequency":
             span = max(1, round(self._sps))
             lo = max(0, a - (span - 1))
-            x = self._buf[lo - self._buf_start:off + count * length]
+            x = self._input.samples[lo - self._input.start:off + count * length]
             z = tone_metric(x, self.p.deviation_hz / self._rate, span)[0][a - lo:]
             power = None
         else:
-            pairs = self._buf[off:off + count * length].view(np.float32)
+            pairs = self._input.samples[off:off + count * length].view(np.float32)
             squares = work_array("eye.squares", pairs.shape[0], np.float64)
             np.multiply(pairs, pairs, out=squares)
             z = power = work_array("eye.power", count * length, np.float64)
@@ -229,12 +218,12 @@ class Eye(Block):
             return
         # traces queued before the first range go with the window that set it
         np.maximum(slots, ranged[0], out=slots)
-        end = self._buf_start + self._buf.shape[0]
+        end = self._input.end
         ready = starts + 2.0 * self._sps + self._advance <= end - 3
         self._pending = starts[~ready]
         starts, slots = starts[ready], slots[ready]
         # stream start: no history before the first sample
-        keep = starts + self._advance - self._lag >= self._buf_start + 1
+        keep = starts + self._advance - self._lag >= self._input.start + 1
         starts, slots = starts[keep], slots[keep]
         if restart is not None:
             self._counts[:] = 0.0
@@ -246,7 +235,8 @@ class Eye(Block):
         step = max(1, _PASS_VALUES // p.time_bins)
         for at in range(0, starts.shape[0], step):
             part = slice(at, at + step)
-            values = trace_quantity(self._buf, starts[part] + self._advance - self._buf_start,
+            values = trace_quantity(self._input.samples,
+                                    starts[part] + self._advance - self._input.start,
                                     self._sps, p.time_bins, p.quantity, self._lag, self._rate)
             if not live[part].all():
                 self._drop(values, slots[part], live[part], ranges)
@@ -267,12 +257,9 @@ class Eye(Block):
         upcoming = self._windows_done * self._window - 0.5 * self._sps
         oldest = min(float(self._pending.min()), upcoming) if self._pending.shape[0] \
             else upcoming
-        keep_from = math.floor(min(oldest + self._advance - self._lag,
-                                   self._windows_done * self._window - self._sps)) - 3 \
-            - self._buf_start
-        if keep_from > 0:
-            self._buf = self._buf[keep_from:]
-            self._buf_start += keep_from
+        self._input.drop_before(math.floor(min(oldest + self._advance - self._lag,
+                                              self._windows_done * self._window - self._sps))
+                               - 3)
 
     # -- figures -----------------------------------------------------------------------------
     def _axes(self) -> tuple[np.ndarray, np.ndarray]:

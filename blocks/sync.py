@@ -21,7 +21,7 @@ from blocks._cfo import (
     windowed_lag_correlation,
 )
 from blocks._mixer import oscillator, tone_row
-from blocks._scratch import work_array
+from blocks._scratch import HeldSamples, work_array
 from blocks._timing import (
     LineState,
     ToneMetricState,
@@ -211,12 +211,7 @@ class Timing(Block):
         self._window = max(1, round(self.p.window_symbols * sps))
         self._line: LineState | None = None
         self._metric_state: ToneMetricState | None = None
-        # Input not yet done with: self._buf is the first _fill samples of _store (reused from
-        # chunk to chunk), absolute index _buf_start onwards.
-        self._store = np.zeros(0, np.complex64)
-        self._fill = 0
-        self._buf = self._store
-        self._buf_start = 0
+        self._input = HeldSamples()                     # input not yet done with
         self._consumed = 0
         self._knots: list[tuple[float, float]] = []
         # Start of the next strobe segment and the phase there (None: no knot yet).
@@ -246,7 +241,7 @@ class Timing(Block):
         require_finite(self, chunk)
         self._notes.add(chunk.annotations)
         x = chunk.samples
-        self._append(x)
+        self._input.append(x)
         first_window = self._consumed // self._window
         self._consumed += x.shape[0]
         sums, self._line = spectral_line(self._metric(x), self._cycles, self._window,
@@ -257,26 +252,16 @@ class Timing(Block):
             self._add_knots(centres, timing_phase(sums))
         self._flush()
 
-    def _append(self, x: np.ndarray) -> None:
-        need = self._fill + x.shape[0]
-        if need > self._store.shape[0]:
-            grown = np.empty(max(need, 2 * self._store.shape[0]), np.complex64)
-            grown[:self._fill] = self._buf
-            self._store = grown
-        self._store[self._fill:need] = x
-        self._fill = need
-        self._buf = self._store[:need]
-
     def finish(self) -> None:
         """Use the incomplete last window, then strobe up to the end of the input."""
         if self._line is not None and self._line.window.filled and (
                 not self._knots or 2 * self._line.window.filled >= self._window):
             filled = self._line.window.filled
-            end = self._buf_start + self._buf.shape[0]
+            end = self._input.end
             self._add_knots(np.array([end - (filled + 1) / 2.0]),
                             np.array([timing_phase(self._line.window.partial)]))
         if self._knots:
-            last = self._buf_start + self._buf.shape[0] - 3 - float(self._offsets[-1])
+            last = self._input.end - 3 - float(self._offsets[-1])
             if last > self._seg_start:
                 self._strobe(np.array([last]), np.array([self._knots[-1][1]]))
         self._flush()
@@ -320,23 +305,17 @@ class Timing(Block):
             self._when = []
             # the output instants relative to the buffer, symbol after symbol
             rows = np.empty((instants.shape[0], 2))
-            rows[:, 0] = instants - self._buf_start
+            rows[:, 0] = instants - self._input.start
             rows[:, 1] = 1.0
             when = np.matmul(rows, self._spread, out=work_array(
                 "timing.when", (instants.shape[0], self._spread.shape[1]), np.float64)).reshape(-1)
-            y = cubic_interpolate(self._buf, when)
-            due = self._notes.due(self._buf_start + math.floor(when[-1]) + 1)
+            y = cubic_interpolate(self._input.samples, when)
+            due = self._notes.due(self._input.start + math.floor(when[-1]) + 1)
             start = self.position()
-            notes = tuple(a.moved(start + int(np.searchsorted(when, a.index - self._buf_start)))
+            notes = tuple(a.moved(start + int(np.searchsorted(when, a.index - self._input.start)))
                           for a in due)
             self.emit(y, annotations=notes)
-        keep_from = self._keep_from - self._buf_start
-        if keep_from > 0:
-            rest = self._fill - keep_from
-            self._store[:rest] = self._store[keep_from:self._fill]
-            self._fill = rest
-            self._buf = self._store[:rest]
-            self._buf_start += keep_from
+        self._input.drop_before(self._keep_from)
 
     def readings(self) -> dict[str, Any]:
         out: dict[str, Any] = {"symbols": self._symbols}

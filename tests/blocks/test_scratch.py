@@ -1,10 +1,10 @@
-"""Tests of the per-thread work arrays (blocks/_scratch.py)."""
+"""Tests of the per-thread work arrays and the held-sample buffer (blocks/_scratch.py)."""
 
 import threading
 
 import numpy as np
 
-from blocks._scratch import KEEP_LIMIT, work_array
+from blocks._scratch import KEEP_LIMIT, HeldSamples, work_array
 
 
 def test_shape_and_dtype_are_as_asked():
@@ -35,3 +35,17 @@ def test_large_requests_are_not_kept():
     a = work_array("test.e", count, np.float64)
     b = work_array("test.e", count, np.float64)
     assert a.shape == (count,) and not np.shares_memory(a, b)
+
+
+def test_held_samples_match_a_plain_concatenation_through_appends_and_drops():
+    # reference: the stream kept whole, sliced at the held range (a plain numpy model)
+    rng = np.random.default_rng(3)
+    held = HeldSamples()
+    stream = np.zeros(0, np.complex64)
+    for _ in range(200):
+        x = (rng.normal(size=rng.integers(0, 300)) + 1j).astype(np.complex64)
+        held.append(x)
+        stream = np.concatenate((stream, x))
+        held.drop_before(held.start + int(rng.integers(0, held.samples.shape[0] + 50)))
+        assert held.end == stream.shape[0]
+        np.testing.assert_array_equal(held.samples, stream[held.start:])
