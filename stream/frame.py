@@ -20,7 +20,8 @@ magic      4s     :data:`MAGIC`, marks a phasefree frame
 version    u8     :data:`VERSION` (1)
 kind       u8     :class:`MessageKind`: DATA, END (end of stream), HEARTBEAT or SESSION
 dtype      u8     :class:`DtypeCode` of the samples (0 for END, HEARTBEAT and SESSION)
-flags      u8     bit 0: annotations part present; the other bits are reserved and must be 0
+flags      u8     bit 0: annotations part present; bit 1: samples held in the sending process
+                  (see below); the other bits are reserved and must be 0
 seq        u64    sequence number on the link, so a gap is visible
 start      i64    DATA: index of the first sample; END: index one past the last sample;
                   SESSION: the sender's session id, in [1, 2**63)
@@ -31,6 +32,14 @@ count      u64    DATA: number of samples in part 1; 0 otherwise
 A SESSION message opens each run of a sender on a link between processes: its ``start`` is a
 random id drawn when the sender starts, so a receiver can tell a restarted sender (whose
 sequence numbers and sample indices begin again at 0) from a gap in a running one.
+
+Between two threads of one process a DATA message may be its header alone: with flag bit 1
+set, parts 1 and 2 stay in memory and the link hands them (the sample array itself, and the
+annotations JSON) to the receiving thread beside the message (:func:`encode_held`,
+``decode([header, *held_parts], port, held=True)``), checked against the header like received
+parts. This saves libzmq's zero-copy release of a large buffer (a wake-up of pyzmq's collector
+thread per message) and the cost of a multipart message. A message with bit 1 set that arrives
+from a socket alone (from another process or host) is rejected as ``"flags"``.
 
 Nothing read from a socket is unpickled or evaluated: the header is unpacked with
 :mod:`struct`, the samples are viewed with :func:`numpy.frombuffer` and the annotations are
@@ -78,7 +87,9 @@ __all__ = [
     "encode",
     "encode_end",
     "encode_heartbeat",
+    "encode_held",
     "encode_session",
+    "is_held",
 ]
 
 #: Marks a phasefree wire frame ("phasefree wire frame"); the project's own choice.
@@ -99,6 +110,8 @@ MAX_LABEL_LENGTH = 64
 
 _HEADER = struct.Struct(HEADER_FORMAT)
 _FLAG_ANNOTATIONS = 0x01
+_FLAG_HELD = 0x02
+_FLAGS_OFFSET = 7  # after magic, version, kind and dtype
 _MAX_SEQ = 2**64 - 1
 _MAX_START = 2**63 - 1
 _ANNOTATION_KEYS = frozenset(("index", "label", "data"))
@@ -222,6 +235,40 @@ def encode(chunk: Chunk, seq: int) -> list[bytes | memoryview | np.ndarray]:
     (chunks are immutable, so this holds). pyzmq copies frames under ``zmq.COPY_THRESHOLD``
     (64 KiB) anyway.
     """
+    header, samples, annotations = _data_parts(chunk, seq, 0)
+    return [header, samples, annotations] if annotations else [header, samples]
+
+
+def encode_held(chunk: Chunk, seq: int) -> tuple[bytes, list[np.ndarray | bytes]]:
+    """Turn a chunk into a DATA message whose samples stay in this process (flag bit 1).
+
+    Parameters
+    ----------
+    chunk : Chunk
+        As for :func:`encode`.
+    seq : int
+        Sequence number, ``0 <= seq < 2**64``.
+
+    Returns
+    -------
+    header : bytes
+        The one part to send.
+    held_parts : list
+        ``[samples]`` or ``[samples, annotations_json]`` (samples contiguous and
+        little-endian), to hand to the receiving thread, which decodes
+        ``[header, *held_parts]`` with ``held=True``.
+
+    Raises
+    ------
+    ValueError, TypeError
+        As for :func:`encode`.
+    """
+    header, samples, annotations = _data_parts(chunk, seq, _FLAG_HELD)
+    return header, ([samples, annotations] if annotations else [samples])
+
+
+def _data_parts(chunk: Chunk, seq: int, flags: int) -> tuple[bytes, np.ndarray, bytes]:
+    """The header, wire-form samples and annotations JSON (empty if none) of a DATA message."""
     samples = chunk.samples
     if samples.ndim != 1:
         raise ValueError(f"chunk samples must be one-dimensional (got shape {samples.shape})")
@@ -236,13 +283,13 @@ def encode(chunk: Chunk, seq: int) -> list[bytes | memoryview | np.ndarray]:
     if not 0.0 < rate < math.inf:  # also false for NaN
         raise ValueError(f"chunk rate must be finite and > 0 (got {chunk.rate})")
     _check_start(chunk.start)
-    flags = _FLAG_ANNOTATIONS if chunk.annotations else 0
+    if chunk.annotations:
+        flags |= _FLAG_ANNOTATIONS
     header = _pack(MessageKind.DATA, seq, chunk.start, code=code, flags=flags, rate=rate,
                    count=samples.shape[0])
-    parts: list[bytes | memoryview | np.ndarray] = [header, samples]
-    if chunk.annotations:
-        parts.append(_encode_annotations(chunk.annotations))
-    return parts
+    annotations = _encode_annotations(chunk.annotations) if chunk.annotations else b""
+    return header, samples, annotations
+
 
 
 def _wire_form(samples: np.ndarray) -> tuple[DtypeCode, np.ndarray]:
@@ -355,7 +402,8 @@ def _annotation_problem(index: object, label: object, data: object) -> str | Non
 # decoding
 
 
-def decode(parts: Sequence[zmq.Frame | bytes | memoryview], port: str | None = None) -> Message:
+def decode(parts: Sequence[zmq.Frame | bytes | memoryview], port: str | None = None,
+           held: bool = False) -> Message:
     """Check and decode the parts of one received message.
 
     Parameters
@@ -365,12 +413,16 @@ def decode(parts: Sequence[zmq.Frame | bytes | memoryview], port: str | None = N
         ``copy=True`` (bytes).
     port : str or None
         The input port to name on a DATA message's chunk (``Chunk.port``).
+    held : bool
+        Whether ``parts[1:]`` were handed over beside a header by a thread of this process
+        (``parts[1]`` then is the sample array itself); False for a message read from a
+        socket alone.
 
     Returns
     -------
     Message
         The decoded message. For DATA, ``chunk.samples`` is a read-only array over the
-        received buffer (no copy), which it keeps alive.
+        received buffer or the held array (no copy), which it keeps alive.
 
     Raises
     ------
@@ -382,7 +434,7 @@ def decode(parts: Sequence[zmq.Frame | bytes | memoryview], port: str | None = N
     Sizes are checked against :data:`MAX_SAMPLES` and :data:`MAX_ANNOTATION_BYTES` before
     anything is parsed, so a hostile header cannot make the receiver allocate.
     """
-    views = _as_buffers(parts)
+    views = _as_buffers(parts[:1]) + list(parts[1:]) if held else _as_buffers(parts)
     if len(views) > 3:
         raise FrameError("parts", f"a message has 1 to 3 parts (got {len(views)})")
     magic, version, kind, code, flags, seq, start, rate, count = _unpack_header(views[0])
@@ -393,15 +445,35 @@ def decode(parts: Sequence[zmq.Frame | bytes | memoryview], port: str | None = N
     message_kind = _KIND_OF_VALUE.get(kind)
     if message_kind is None:
         raise FrameError("type", f"unknown message type {kind}")
-    if flags & ~_FLAG_ANNOTATIONS:
+    if flags & ~(_FLAG_ANNOTATIONS | _FLAG_HELD):
         raise FrameError("flags", f"reserved flag bits set (flags 0x{flags:02x})")
     if start < 0:
         raise FrameError("start", f"start index must be >= 0 (got {start})")
     if message_kind is MessageKind.DATA:
+        if bool(flags & _FLAG_HELD) != held:
+            raise FrameError("flags", "samples held in a sending thread's memory (flag bit 1) "
+                                      "travel only beside messages inside one process")
         chunk = _decode_data(views, code, flags, start, rate, count, port)
         return Message(message_kind, seq, start, chunk)
     _check_control(views, message_kind, code, flags, start, rate, count)
     return Message(message_kind, seq, start)
+
+
+def is_held(header: bytes) -> bool:
+    """Whether a message's first part is a phasefree header with flag bit 1 (samples held).
+
+    Parameters
+    ----------
+    header : bytes
+        The first part of a received message.
+
+    Returns
+    -------
+    bool
+        True if its other parts wait in the sending thread's hand-over queue.
+    """
+    return (len(header) == HEADER_SIZE and header[:4] == MAGIC
+            and bool(header[_FLAGS_OFFSET] & _FLAG_HELD))
 
 
 def _as_buffers(parts: Sequence[Any]) -> list[bytes | zmq.Frame | memoryview]:
@@ -432,6 +504,7 @@ def _unpack_header(view: bytes | zmq.Frame | memoryview) -> tuple:
 def _decode_data(views: list, code: int, flags: int, start: int, rate: float, count: int,
                  port: str | None) -> Chunk:
     expected_parts = 3 if flags & _FLAG_ANNOTATIONS else 2
+    held = flags & _FLAG_HELD
     if len(views) != expected_parts:
         raise FrameError(
             "parts",
@@ -443,16 +516,17 @@ def _decode_data(views: list, code: int, flags: int, start: int, rate: float, co
         raise FrameError("dtype", f"unknown dtype code {code}")
     if count > MAX_SAMPLES:
         raise FrameError("oversized", f"{count} samples, more than MAX_SAMPLES={MAX_SAMPLES}")
-    if len(views[1]) != count * dtype.itemsize:
+    size = views[1].nbytes if held else len(views[1])
+    if size != count * dtype.itemsize or (held and views[1].dtype != dtype):
         raise FrameError(
             "length",
             f"{count} {dtype.name} samples need {count * dtype.itemsize} bytes "
-            f"(got {len(views[1])})",
+            f"(got {size}" + (f" of {views[1].dtype}" if held else "") + ")",
         )
     if not 0.0 < rate < math.inf:  # also false for NaN
         raise FrameError("rate", f"rate must be finite and > 0 (got {rate})")
     annotations = _decode_annotations(views[2]) if expected_parts == 3 else ()
-    samples = np.frombuffer(views[1], dtype=dtype)
+    samples = views[1].view() if held else np.frombuffer(views[1], dtype=dtype)
     samples.setflags(write=False)
     return Chunk(samples, start, rate, annotations, port)
 

@@ -19,7 +19,9 @@ kernels
     stage's own input (bits/s for the framer and the BER meter).
 links
     a link hop (``stream.link``, with the wire frame) over inproc, ipc and tcp against raw
-    pyzmq PUSH/PULL sending the same frames, both ends as a thread pair: ratio to raw.
+    pyzmq PUSH/PULL sending the same frames, both ends as a thread pair: ratio to raw. On
+    inproc the link hands the array over beside a header-only message (``frame.encode_held``)
+    while raw pyzmq carries the whole frame, so its ratio can pass 1.
 processes
     a CPU-bound chain (the DBPSK receiver) split after its matched filter into two processes
     joined by raw pyzmq over ipc with the wire frame, against the same work in one process:

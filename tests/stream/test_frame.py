@@ -34,7 +34,9 @@ from stream.frame import (
     encode,
     encode_end,
     encode_heartbeat,
+    encode_held,
     encode_session,
+    is_held,
 )
 
 DTYPE_CODES = {"complex64": 1, "float32": 2, "uint8": 3, "int16": 4, "int8": 5, "float64": 6}
@@ -165,6 +167,56 @@ def test_round_trip_every_dtype_without_and_with_annotations(name: str, length: 
         chunk = Chunk(samples, 77, 250_000.0, notes)
         message = decode(_wire(encode(chunk, 5)))
         _assert_same_chunk(message.chunk, chunk)
+
+
+@FUZZ
+@given(chunk=chunks(), seq=st.integers(0, 2**64 - 1))
+def test_held_round_trip(chunk: Chunk, seq: int) -> None:
+    # a message whose samples stay in the process: the header alone travels, with flag bit 1
+    # (module docstring), and the rest is the chunk's own array and the annotations JSON
+    header, rest = encode_held(chunk, seq)
+    assert is_held(header)
+    assert header[7] == (0x02 | (0x01 if chunk.annotations else 0))
+    assert header[:7] + bytes([header[7] & 0x01]) + header[8:] == encode(chunk, seq)[0]
+    assert len(rest) == (2 if chunk.annotations else 1)
+    message = decode([header, *rest], held=True)
+    assert (message.kind, message.seq, message.start) == (MessageKind.DATA, seq, chunk.start)
+    _assert_same_chunk(message.chunk, chunk)
+    assert np.shares_memory(message.chunk.samples, chunk.samples) or chunk.samples.size == 0
+
+
+def test_a_held_header_from_outside_the_process_is_rejected() -> None:
+    # the samples of a held message live in the sender's memory: from a socket alone such a
+    # header has nothing to point at, and a receiver must not take a local array for it
+    header, _ = encode_held(Chunk(np.zeros(4, np.float32), 0, 1.0), 0)
+    for parts in ([header], [header, bytes(16)]):
+        with pytest.raises(FrameError) as err:
+            decode(parts)
+        assert err.value.reason == "flags"
+    # the other way round: parts handed over beside a header that does not say so
+    plain = encode(Chunk(np.zeros(4, np.float32), 0, 1.0), 0)
+    with pytest.raises(FrameError) as err:
+        decode([plain[0], np.zeros(4, np.float32)], held=True)
+    assert err.value.reason == "flags"
+
+
+@pytest.mark.parametrize("wrong", [np.zeros(5, np.float32), np.zeros(4, np.int32),
+                                   np.zeros(2, np.complex64)], ids=["count", "dtype", "type"])
+def test_held_samples_must_match_their_header(wrong: np.ndarray) -> None:
+    header, _ = encode_held(Chunk(np.zeros(4, np.float32), 0, 1.0), 0)
+    with pytest.raises(FrameError) as err:
+        decode([header, wrong], held=True)
+    assert err.value.reason == "length"
+
+
+def test_is_held_reads_only_well_formed_headers() -> None:
+    header, _ = encode_held(Chunk(np.zeros(4, np.float32), 0, 1.0), 0)
+    assert is_held(header)
+    assert not is_held(encode(Chunk(np.zeros(4, np.float32), 0, 1.0), 0)[0])
+    assert not is_held(encode_end(0, 0)[0])
+    assert not is_held(b"XXXX" + header[4:])          # another magic
+    assert not is_held(header[:-1])                   # truncated
+    assert not is_held(b"")
 
 
 def test_encode_does_not_copy_contiguous_samples() -> None:

@@ -95,6 +95,13 @@ def _fill_tap(outlet: Outlet, offers: int = 40) -> int:
     return sum(outlet.send(_chunk(i)) for i in range(offers))
 
 
+def _check_pairing(msg: frame.Message, n: int = 16) -> int:
+    """The chunk number of a ``_chunk`` message, after checking its samples are its own."""
+    i = msg.chunk.start // n
+    np.testing.assert_array_equal(msg.chunk.samples, _chunk(i, n).samples)
+    return i
+
+
 GARBAGE = [
     pytest.param([b""], id="empty-part"),
     pytest.param([b"junk"], id="short-header"),
@@ -176,11 +183,12 @@ def test_tap_with_no_room_drops_and_counts_without_waiting(ctx):
         assert results[:accepted] == [True] * accepted   # the first ones fit, then drops
         s = outlet.counters.statistics()
         assert (s.sent, s.dropped) == (accepted, 40 - accepted)
-        # the queued chunks arrive intact; the dropped ones show up as a gap at the next one
-        for i in range(accepted):
-            assert _receive(inlet).chunk.start == _chunk(i).start
+        # the queued chunks arrive intact, each with its own samples (the dropped ones left no
+        # array behind in the hand-over queue); the dropped ones show up as a gap at the next one
+        assert [_check_pairing(_receive(inlet)) for _ in range(accepted)] == list(range(accepted))
         _send_when_room(outlet, _chunk(40))
-        assert _receive(inlet).chunk.start == _chunk(40).start
+        assert _check_pairing(_receive(inlet)) == 40
+        assert not outlet.parcels
         s = outlet.counters.statistics()
         assert s.dropped >= 40 - accepted
         assert s.gaps == s.dropped
@@ -265,6 +273,60 @@ def test_end_of_stream_on_a_full_link_gives_up_on_abort(ctx):
         outlet.end()                          # returns (logged, not raised)
         assert outlet.counters.sent == accepted
     finally:
+        outlet.close()
+        inlet.close()
+
+
+def test_in_process_link_hands_the_array_over_without_a_copy(ctx, tmp_path):
+    # inproc: the samples stay in memory beside the message (stream/link.py docstring);
+    # ipc: they travel inside the message, so the receiver has its own copy
+    for address, shared in ((_address(), True), (f"ipc://{tmp_path}/link", False)):
+        outlet, inlet, _ = _open(ctx, tap=False, address=address)
+        try:
+            sent = _chunk(7, 100_000)              # above pyzmq's copy threshold
+            outlet.send(sent)
+            got = _receive(inlet).chunk
+            assert np.shares_memory(got.samples, sent.samples) is shared
+            assert not got.samples.flags.writeable
+            np.testing.assert_array_equal(got.samples, sent.samples)
+            assert (outlet.parcels is None) is not shared
+            assert not outlet.parcels
+        finally:
+            outlet.close()
+            inlet.close()
+
+
+def test_refused_offers_and_aborted_sends_leave_no_array_behind(ctx):
+    outlet, inlet, abort = _open(ctx, tap=False, depth=2)
+    try:
+        accepted = _fill(outlet, abort)           # the last send raised LinkClosed
+        refused = outlet.offer(_chunk(accepted))
+        assert not refused
+        assert len(outlet.parcels) == accepted
+        assert [_check_pairing(_receive(inlet)) for _ in range(accepted)] == list(range(accepted))
+        _send_when_room(outlet, _chunk(accepted + 1))   # room is seen a little late
+        assert _check_pairing(_receive(inlet)) == accepted + 1
+    finally:
+        outlet.close()
+        inlet.close()
+
+
+def test_a_whole_frame_from_another_sender_does_not_take_a_held_array(ctx):
+    # a frame that carries its samples (written by anything but this link's own outlet) is read
+    # whole, and the arrays waiting beside this link's messages stay with them
+    address = _address()
+    outlet, inlet, _ = _open(ctx, tap=False, depth=8, address=address)
+    rogue = _injector(ctx, address)
+    try:
+        outlet.send(_chunk(1))
+        rogue.send_multipart(frame.encode(_chunk(2), 0))
+        outlet.send(_chunk(3))
+        got = sorted(_check_pairing(_receive(inlet)) for _ in range(3))
+        assert got == [1, 2, 3]
+        assert not outlet.parcels
+        assert inlet.counters.rejected == 0
+    finally:
+        rogue.close(linger=0)
         outlet.close()
         inlet.close()
 
