@@ -291,7 +291,6 @@ def _data_parts(chunk: Chunk, seq: int, flags: int) -> tuple[bytes, np.ndarray, 
     return header, samples, annotations
 
 
-
 def _wire_form(samples: np.ndarray) -> tuple[DtypeCode, np.ndarray]:
     """The wire code of ``samples`` and the samples made contiguous and little-endian."""
     wire_dtype = samples.dtype.newbyteorder("<")

@@ -148,7 +148,11 @@ class Outlet:
                 self.counters.dropped += 1
                 return False
         else:
-            self._send_waiting(parts)
+            try:
+                self._send_waiting(parts)
+            except LinkClosed:
+                self._take_back()
+                raise
         self.counters.sent += 1
         return True
 
@@ -180,13 +184,12 @@ class Outlet:
         parts = frame.encode_end(self.seq, self.position)
         self.seq += 1
         try:
-            self._send_waiting(parts, timeout_s, held=False)
+            self._send_waiting(parts, timeout_s)
             self.counters.sent += 1
         except LinkClosed:
             log.debug("end of stream not delivered on %s", self.counters.label)
 
-    def _send_waiting(self, parts: list, timeout_s: float | None = None,
-                      held: bool = True) -> None:
+    def _send_waiting(self, parts: list, timeout_s: float | None = None) -> None:
         # A link's socket waits inside libzmq, with the GIL released, for at most _WAIT_MS
         # (its send timeout) per try, so a full link costs no exception per chunk and an abort
         # is still seen within _WAIT_MS. XPUB reports itself writable even when XPUB_NODROP
@@ -200,8 +203,6 @@ class Outlet:
                 return
             except zmq.Again:
                 if self.abort.is_set() or (deadline is not None and time.monotonic() > deadline):
-                    if held:
-                        self._take_back()
                     raise LinkClosed(self.counters.label) from None
                 if tap:
                     time.sleep(_WAIT_MS / 10000)

@@ -23,9 +23,10 @@ links
     inproc the link hands the array over beside a header-only message (``frame.encode_held``)
     while raw pyzmq carries the whole frame, so its ratio can pass 1.
 processes
-    a CPU-bound chain (the DBPSK receiver) split after its matched filter into two processes
-    joined by raw pyzmq over ipc with the wire frame, against the same work in one process:
-    speedup.
+    the OOK receiver divided into two parts (two ``Runner`` processes, one core each, joined by
+    an ``ipc://`` crossing; the cut where the reference's busy times balance) against the whole
+    receiver in one process on one core: speedup (``process_msps`` also gives one process left
+    on all cores).
 peak_rss_mb, rss_growth
     peak resident memory of a full receiver run (source included) of 3 units of length, and
     its ratio to the run of 1 unit: bounded memory gives about 1.
