@@ -296,6 +296,8 @@ class _SendingEnd(_Relay):
                 log.debug("link %s: leaving (end %s)", self.label,
                           "acknowledged" if acked else "not acknowledged")
                 break
+            # a message waiting for room: woken when the network socket has room again
+            poller.modify(self.sock, zmq.POLLIN | (zmq.POLLOUT if pending is not None else 0))
             want_hop = pending is None and not ended
             if want_hop != hop_registered:
                 if want_hop:
@@ -306,7 +308,7 @@ class _SendingEnd(_Relay):
             events = dict(poller.poll(5 if pending is not None else _POLL_MS))
             if self.monitor in events:
                 self._read_monitor()
-            if self.sock in events:
+            if events.get(self.sock, 0) & zmq.POLLIN:
                 acked = self._read_peer(now) or acked
             if hop_registered and self.hop.sock in events:
                 msg = self.hop.receive()
@@ -368,7 +370,9 @@ class _ReceivingEnd(_Relay):
         while not self.aborting.is_set():
             if self.stopping.is_set():
                 break
-            if pending is not None and self.hop.offer(pending):
+            # waits inside libzmq until the block takes a chunk (a timer here left the
+            # receiving part's core idle whenever its first block had emptied its queue)
+            if pending is not None and self.hop.offer(pending, wait=True):
                 pending = None
             if ended and pending is None:
                 break

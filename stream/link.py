@@ -156,8 +156,9 @@ class Outlet:
         self.counters.sent += 1
         return True
 
-    def offer(self, chunk: Chunk) -> bool:
-        """Send one chunk if the link has room now, without waiting.
+    def offer(self, chunk: Chunk, wait: bool = False) -> bool:
+        """Send one chunk if the link has room now (with ``wait``: within its send timeout,
+        ~50 ms, woken as soon as there is room), never longer.
 
         Returns
         -------
@@ -166,7 +167,7 @@ class Outlet:
         """
         parts = self._encode(chunk)
         try:
-            self._send(parts, zmq.NOBLOCK)
+            self._send(parts, 0 if wait and not self.counters.tap else zmq.NOBLOCK)
         except zmq.Again:
             self._take_back()
             return False

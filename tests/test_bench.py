@@ -38,6 +38,7 @@ def test_bench_quick_json_reports_every_figure():
         assert all(positive(v) for v in result["receivers"][scheme].values())
         assert positive(result["references"][scheme])
         assert positive(result["overhead"][scheme])
+        assert positive(result["start_stop_ms"][scheme])
     assert set(KERNELS) <= set(result["kernels"])
     assert all(positive(v) for v in result["kernels"].values())
     assert set(result["links"]) == {"inproc", "ipc", "tcp"}
@@ -60,6 +61,7 @@ def test_bench_table_names_the_targets():
         "receivers": figures, "references": dict.fromkeys(SCHEMES, 42.0),
         "overhead": dict.fromkeys(SCHEMES, 40 / 42),
         "realtime_margin": dict.fromkeys(SCHEMES, 40 / 2.4),
+        "start_stop_ms": dict.fromkeys(SCHEMES, 12.0),
         "kernels": {"decimate": 100.0}, "links": {"inproc": 0.8}, "link_msps": {"inproc": 300.0},
         "processes": 1.6, "process_msps": {"one": 10.0, "two": 16.0, "one_all_cores": 7.0,
                                            "scheme": "ook", "cut": "cfo -> mf"},
@@ -68,3 +70,4 @@ def test_bench_table_names_the_targets():
     text = bench.table(result)
     assert "ook" in text and "0.95" in text and "16.7" in text
     assert "1.60x" in text and "150.0 MB" in text and "cut at cfo -> mf" in text
+    assert "ook 12 ms" in text

@@ -14,6 +14,10 @@ receivers
 references
     the same blocks, configured the same way, called in order in one thread with no runtime
     (64k chunks): the runtime's overhead is ``receivers[..]["65536"] / references[..]``.
+start_stop_ms
+    a run of one 64k chunk through the runtime: the fixed cost of starting the block threads
+    and ending the stream through them, paid once per run. The receivers' runs are long
+    enough (10 M samples in the full run) that it is a few per cent of them.
 kernels
     each stage alone on its real input (captured from a reference run): Msamples/s of the
     stage's own input (bits/s for the framer and the BER meter).
@@ -26,7 +30,8 @@ processes
     the OOK receiver divided into two parts (two ``Runner`` processes, one core each, joined by
     an ``ipc://`` crossing; the cut where the reference's busy times balance) against the whole
     receiver in one process on one core: speedup (``process_msps`` also gives one process left
-    on all cores).
+    on all cores). Every process maps the same tape file, runs a few chunks inline first (no
+    cold start), and is timed from the moment all of them are running.
 peak_rss_mb, rss_growth
     peak resident memory of a full receiver run (source included) of 3 units of length, and
     its ratio to the run of 1 unit: bounded memory gives about 1.
@@ -85,6 +90,8 @@ from stream.runner import Runner  # noqa: E402
 SCHEMES = ("ook", "2fsk", "dbpsk", "dqpsk")
 CHUNKS = (4096, 16384, 65536)
 REFERENCE_CHUNK = 65536
+#: Chunks a bench child process runs inline before its timed run (so it starts warm).
+WARM_CHUNKS = 4
 #: Input rate of the 8-bit SDR the targets are set against (samples/s).
 SDR_RATE = 2.4e6
 
@@ -94,6 +101,7 @@ class Sizes:
     """How much work each section does (samples, messages, repeats)."""
 
     samples: int
+    process_samples: int
     repeats: int
     link_messages: int
     link_repeats: int
@@ -102,13 +110,18 @@ class Sizes:
 
 
 SIZES = {
-    "full": Sizes(samples=3_000_000, repeats=3, link_messages=3000, link_repeats=7,
+    # long enough that a run's fixed start and stop cost (``start_stop_ms``, reported on its
+    # own) is a few per cent of a receiver's run and of the two-process run
+    "full": Sizes(samples=10_000_000, process_samples=24_000_000, repeats=3,
+                  link_messages=3000, link_repeats=7,
                   memory_symbols=60_000, latency_s=3.0),
     # three repeats even when quick: single runs of the same code on a shared 2-core machine
     # gave runtime/reference ratios anywhere from 0.5 to 1.3
-    "quick": Sizes(samples=800_000, repeats=3, link_messages=1000, link_repeats=5,
+    "quick": Sizes(samples=2_000_000, process_samples=8_000_000, repeats=3,
+                   link_messages=1000, link_repeats=5,
                    memory_symbols=15_000, latency_s=1.0),
-    "tiny": Sizes(samples=120_000, repeats=1, link_messages=20, link_repeats=1,
+    "tiny": Sizes(samples=120_000, process_samples=240_000, repeats=1,
+                  link_messages=20, link_repeats=1,
                   memory_symbols=2_000, latency_s=0.2),
 }
 
@@ -123,7 +136,8 @@ TAPES: dict[str, np.ndarray] = {}
 STAMPS: dict[str, dict[str, list[tuple[int, float]]]] = {}
 
 
-#: Set in a bench child process: the replay source waits for it before its first chunk.
+#: Set in a bench child process: ``(ready, go)``; the replay source, once the run has
+#: started, sets ``ready`` and waits for ``go`` before its first chunk.
 START_GATE: list[Any] = []
 
 
@@ -145,7 +159,9 @@ class ReplaySource(Source):
 
     def produce(self) -> bool:
         if self._at == 0 and START_GATE:
-            START_GATE[0].wait()
+            ready, go = START_GATE
+            ready.set()
+            go.wait()
         n = self.p.chunk_size
         piece = self._tape[self._at:self._at + n]
         self._at += piece.shape[0]
@@ -179,11 +195,17 @@ def config_doc(scheme: str) -> dict[str, Any]:
         return tomllib.load(f)
 
 
+def doc_with_replay(doc: dict[str, Any], tape: str,
+                    chunk: int = REFERENCE_CHUNK) -> dict[str, Any]:
+    """A copy of a pipeline document whose source is a replay of ``TAPES[tape]``."""
+    doc = json.loads(json.dumps(doc))
+    doc["blocks"]["src"] = {"kind": "bench-replay", "tape": tape, "chunk_size": chunk}
+    return doc
+
+
 def replay_pipeline(scheme: str, tape: str, chunk: int) -> Pipeline:
     """The scheme's receiver with its source replaced by a replay of ``TAPES[tape]``."""
-    doc = config_doc(scheme)
-    doc["blocks"]["src"] = {"kind": "bench-replay", "tape": tape, "chunk_size": chunk}
-    return pipeline_from_dict(doc)
+    return pipeline_from_dict(doc_with_replay(config_doc(scheme), tape, chunk))
 
 
 def generate_tape(scheme: str, samples: int) -> np.ndarray:
@@ -271,14 +293,20 @@ def time_reference(scheme: str, tape: str, rate: float) -> float:
     return time.perf_counter() - t0
 
 
-def bench_receivers(sizes: Sizes) -> tuple[dict, dict, dict[str, dict[str, list[Chunk]]]]:
-    """Runtime and reference figures per scheme, and each block's captured input."""
+def bench_receivers(sizes: Sizes) -> tuple[dict, dict, dict[str, float],
+                                           dict[str, dict[str, list[Chunk]]]]:
+    """Runtime and reference figures per scheme, each run's fixed start and stop cost (ms:
+    a run of one 64k chunk), and each block's captured input."""
     receivers: dict[str, dict[str, float]] = {}
     references: dict[str, float] = {}
+    start_stop: dict[str, float] = {}
     captured: dict[str, dict[str, list[Chunk]]] = {}
     for scheme in SCHEMES:
         tape = f"rx-{scheme}"
         TAPES[tape] = generate_tape(scheme, sizes.samples)
+        TAPES[f"one-{scheme}"] = TAPES[tape][:REFERENCE_CHUNK]
+        start_stop[scheme] = 1e3 * best_of(sizes.repeats, lambda s=scheme: time_runtime(
+            s, f"one-{s}", REFERENCE_CHUNK))
         n = TAPES[tape].shape[0]
         rate = float(config_doc(scheme)["pipeline"]["sample_rate"])
         receivers[scheme] = {}
@@ -295,7 +323,7 @@ def bench_receivers(sizes: Sizes) -> tuple[dict, dict, dict[str, dict[str, list[
         inline.feed(TAPES[tape], REFERENCE_CHUNK, rate)
         assert inline.inputs is not None
         captured[scheme] = inline.inputs
-    return receivers, references, captured
+    return receivers, references, start_stop, captured
 
 
 # ----------------------------------------------------------------------------------------------
@@ -529,31 +557,39 @@ def balanced_parts(scheme: str, busy: dict[str, float]) -> tuple[list[str], list
     return side(ids[:cut]), side(ids[cut:]), f"{chain[cut - 1]} -> {chain[cut]}"
 
 
-def _part_process(doc: dict[str, Any], samples: int, part: str | None, ready, go, done) -> None:
-    """Run a receiver (or one part of it) once ``go`` is set; report when it ended."""
-    if part in (None, "front"):
-        TAPES["split"] = generate_tape(SPLIT_SCHEME, samples)
-    else:
-        TAPES["split"] = np.zeros(1, np.complex64)
+def _part_process(doc: dict[str, Any], tape_file: str, part: str | None, ready, go,
+                  done) -> None:
+    """Run a receiver (or one part of it) once ``go`` is set; report when it ended.
+
+    The tape is mapped from the file the parent wrote (every process shares its pages), and
+    the whole receiver first runs a few chunks of it inline, so no process starts cold."""
+    keep_freed_memory()
+    threadpool_limits(limits=1, user_api="blas")  # as main() does for the parent
+    TAPES["split"] = np.load(tape_file, mmap_mode="r")
+    warm = Inline(pipeline_from_dict(doc_with_replay(doc, "split")))
+    warm.feed(TAPES["split"][:WARM_CHUNKS * REFERENCE_CHUNK], REFERENCE_CHUNK,
+              float(doc["pipeline"]["sample_rate"]))
     pipe = pipeline_from_dict(doc)
     plan = choose_parts(pipe, part) if part is not None else None
     cpus = doc["pipeline"].get("cpus")
     runner = Runner(pipe, part=plan, cpus=cpus)
-    START_GATE.append(go)
-    ready.set()
+    if plan is None or "src" in plan.blocks:
+        START_GATE[:] = [ready, go]
+    else:  # a part without the source waits for its input anyway
+        ready.set()
     summary = runner.run()
     done.put((part, time.monotonic(), summary["reason"],
               int(summary["blocks"].get("ber", {}).get("bits") or 0)))
 
 
-def _time_processes(doc: dict[str, Any], samples: int, parts: list[str | None]) -> float:
+def _time_processes(doc: dict[str, Any], tape_file: str, parts: list[str | None]) -> float:
     """Seconds from the start signal until every process has ended its run."""
     spawn = mp.get_context("spawn")
     go, done = spawn.Event(), spawn.Queue()
     readies, procs = [], []
     for part in parts:
         ready = spawn.Event()
-        proc = spawn.Process(target=_part_process, args=(doc, samples, part, ready, go, done))
+        proc = spawn.Process(target=_part_process, args=(doc, tape_file, part, ready, go, done))
         proc.start()
         readies.append(ready)
         procs.append(proc)
@@ -575,19 +611,20 @@ def _time_processes(doc: dict[str, Any], samples: int, parts: list[str | None]) 
 
 def bench_processes(sizes: Sizes) -> tuple[float, dict[str, Any]]:
     """Speedup of the receiver divided in two parts (two processes, one core each, over ipc)
-    against the whole receiver in one process (its block threads on one core). Twice the
-    receivers' length: filling and draining the two-stage pipeline is a fixed cost."""
-    samples = 2 * sizes.samples
+    against the whole receiver in one process (its block threads on one core). The run is
+    long (``process_samples``): filling and draining the two-stage pipeline and starting and
+    stopping the runs are fixed costs."""
+    samples = sizes.process_samples
     TAPES["split"] = generate_tape(SPLIT_SCHEME, samples)
     inline = Inline(replay_pipeline(SPLIT_SCHEME, "split", REFERENCE_CHUNK))
-    inline.feed(TAPES["split"], REFERENCE_CHUNK,
+    inline.feed(TAPES["split"][:sizes.samples], REFERENCE_CHUNK,
                 float(config_doc(SPLIT_SCHEME)["pipeline"]["sample_rate"]))
     busy = {bid: b.statistics().busy_s for bid, b in inline.pipe.blocks.items()}
     front, back, cut = balanced_parts(SPLIT_SCHEME, busy)
     with tempfile.TemporaryDirectory(prefix="pf-bench-") as tmp:
-        whole = config_doc(SPLIT_SCHEME)
-        whole["blocks"]["src"] = {"kind": "bench-replay", "tape": "split",
-                                  "chunk_size": REFERENCE_CHUNK}
+        tape_file = os.path.join(tmp, "split.npy")
+        np.save(tape_file, TAPES.pop("split"))
+        whole = doc_with_replay(config_doc(SPLIT_SCHEME), "split")
         spread = json.loads(json.dumps(whole))
         spread["pipeline"]["cpus"] = "all"
         split = json.loads(json.dumps(whole))
@@ -595,9 +632,9 @@ def bench_processes(sizes: Sizes) -> tuple[float, dict[str, Any]]:
         split["crossings"] = {cut: {"address": f"ipc://{tmp}/split.sock"}}
         t_one, t_all, t_two = [], [], []
         for _ in range(sizes.repeats):
-            t_one.append(_time_processes(whole, samples, [None]))
-            t_all.append(_time_processes(spread, samples, [None]))
-            t_two.append(_time_processes(split, samples, ["back", "front"]))
+            t_one.append(_time_processes(whole, tape_file, [None]))
+            t_all.append(_time_processes(spread, tape_file, [None]))
+            t_two.append(_time_processes(split, tape_file, ["back", "front"]))
     return min(t_one) / min(t_two), {
         "one": samples / min(t_one) / 1e6,
         "one_all_cores": samples / min(t_all) / 1e6,
@@ -669,7 +706,7 @@ def bench_latency(sizes: Sizes) -> float:
 
 def run(sizes: Sizes) -> dict[str, Any]:
     """Every section, in one run."""
-    receivers, references, captured = bench_receivers(sizes)
+    receivers, references, start_stop, captured = bench_receivers(sizes)
     kernels = bench_kernels(sizes, captured)
     links, link_msps = bench_links(sizes)
     processes, process_msps = bench_processes(sizes)
@@ -680,6 +717,7 @@ def run(sizes: Sizes) -> dict[str, Any]:
         "references": references,
         "overhead": {s: receivers[s]["65536"] / references[s] for s in SCHEMES},
         "realtime_margin": {s: receivers[s]["65536"] * 1e6 / SDR_RATE for s in SCHEMES},
+        "start_stop_ms": start_stop,
         "kernels": kernels,
         "links": links,
         "link_msps": link_msps,
@@ -702,6 +740,8 @@ def table(result: dict[str, Any]) -> str:
                      + f"{result['references'][s]:>12.2f}{result['overhead'][s]:>8.2f}"
                      + f"{result['realtime_margin'][s]:>8.1f}")
     lines.append("  targets: ratio >= 0.9, x 2.4M >= 16")
+    lines.append("  fixed cost of a run (start and stop, one 64k chunk): " + ", ".join(
+        f"{s} {result['start_stop_ms'][s]:.0f} ms" for s in SCHEMES))
     lines.append("kernels alone (M items/s of their own input)")
     lines.extend(f"  {k:<16}{v:>9.2f}" for k, v in result["kernels"].items())
     lines.append("link hop vs raw pyzmq, 16k-sample frames (target >= 0.7)")

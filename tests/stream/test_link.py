@@ -339,3 +339,25 @@ def test_statistics_are_a_frozen_record_and_repr_says_what_it_holds():
         s.sent = 0  # type: ignore[misc]
     assert "tap src.out ~> eye.in" in repr(counters)
     assert "dropped=2" in repr(counters)
+
+
+def test_an_offer_that_waits_takes_the_room_a_reader_frees_and_gives_up_when_none_comes(ctx):
+    # the receiving end of a crossing hands chunks to its block this way: woken by the room
+    # itself, never by a timer, and never waiting longer than the link's send timeout
+    outlet, inlet, abort = _open(ctx, tap=False, depth=2)
+    try:
+        accepted = _fill(outlet, abort)
+        assert not outlet.offer(_chunk(accepted), wait=True)     # nobody reads: gives up
+        assert len(outlet.parcels) == accepted
+        reader = threading.Timer(0.01, lambda: [_receive(inlet) for _ in range(accepted)])
+        reader.start()
+        try:
+            # the reader empties the link during the wait (libzmq reports the room a little
+            # late, so a few tries may be needed; each wait is bounded by the send timeout)
+            assert any(outlet.offer(_chunk(accepted), wait=True) for _ in range(20))
+        finally:
+            reader.join()
+        assert _check_pairing(_receive(inlet)) == accepted
+    finally:
+        outlet.close()
+        inlet.close()
