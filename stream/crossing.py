@@ -276,7 +276,7 @@ class _SendingEnd(_Relay):
         poller = zmq.Poller()
         poller.register(self.monitor, zmq.POLLIN)
         poller.register(self.sock, zmq.POLLIN)
-        hop_registered = False
+        hop_registered = room_registered = False
         while not self.aborting.is_set():
             now = time.monotonic()
             if self.stopping.is_set() and stop_t is None:
@@ -297,7 +297,10 @@ class _SendingEnd(_Relay):
                           "acknowledged" if acked else "not acknowledged")
                 break
             # a message waiting for room: woken when the network socket has room again
-            poller.modify(self.sock, zmq.POLLIN | (zmq.POLLOUT if pending is not None else 0))
+            want_room = pending is not None
+            if want_room != room_registered:
+                poller.modify(self.sock, zmq.POLLIN | (zmq.POLLOUT if want_room else 0))
+                room_registered = want_room
             want_hop = pending is None and not ended
             if want_hop != hop_registered:
                 if want_hop:

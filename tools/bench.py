@@ -566,7 +566,7 @@ def _part_process(doc: dict[str, Any], tape_file: str, part: str | None, ready, 
     keep_freed_memory()
     threadpool_limits(limits=1, user_api="blas")  # as main() does for the parent
     TAPES["split"] = np.load(tape_file, mmap_mode="r")
-    warm = Inline(pipeline_from_dict(doc_with_replay(doc, "split")))
+    warm = Inline(pipeline_from_dict(doc))  # the whole receiver, parts or none
     warm.feed(TAPES["split"][:WARM_CHUNKS * REFERENCE_CHUNK], REFERENCE_CHUNK,
               float(doc["pipeline"]["sample_rate"]))
     pipe = pipeline_from_dict(doc)
