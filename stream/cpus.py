@@ -18,6 +18,13 @@ Settings (``[pipeline] cpus`` or ``phasefree run --cpus``):
 
 Where the operating system offers no affinity call (only Linux has ``os.sched_setaffinity``),
 or only one core is allowed anyway, nothing is pinned.
+
+Block threads also run under Linux's batch policy (``SCHED_BATCH``, sched(7)): a thread woken
+by a chunk then waits for the running one to block instead of preempting it. On a shared core
+the woken consumer could do nothing anyway (the producer holds the interpreter lock) but cost
+two context switches. Measured with the four loopback receivers, 10 M samples, one core,
+best of 3 (ad-hoc script): involuntary context switches per run 148-187 -> 84-126, runtime /
+no-runtime reference 0.84-0.90 -> 0.86-0.93.
 """
 
 from __future__ import annotations
@@ -27,7 +34,8 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from typing import Any
 
-__all__ = ["CpuSettingError", "allowed_cpus", "choose_cpus", "parse_cpus", "pinned"]
+__all__ = ["CpuSettingError", "allowed_cpus", "batch_policy", "choose_cpus", "parse_cpus",
+           "pinned"]
 
 #: The settings that are words rather than core numbers.
 WORDS = ("auto", "all")
@@ -160,3 +168,18 @@ def pinned(cpus: frozenset[int] | None) -> Iterator[None]:
         yield
     finally:
         os.sched_setaffinity(0, before)
+
+
+def batch_policy() -> bool:
+    """Put the calling thread under ``SCHED_BATCH`` (module docstring); True if it is now.
+
+    Leaving the normal policy for the batch one needs no privilege; where the system has no
+    such policy or refuses (another operating system, a sandbox), the thread keeps its own.
+    """
+    if not hasattr(os, "SCHED_BATCH"):
+        return False
+    try:
+        os.sched_setscheduler(0, os.SCHED_BATCH, os.sched_param(0))
+    except OSError:
+        return False
+    return True

@@ -22,7 +22,7 @@ import zmq
 from threadpoolctl import ThreadpoolController
 
 from stream.block import Block, Source
-from stream.cpus import choose_cpus, parse_cpus, pinned
+from stream.cpus import batch_policy, choose_cpus, parse_cpus, pinned
 from stream.crossing import NetworkEnds
 from stream.errors import BlockFailed, LinkClosed
 from stream.frame import Message, MessageKind
@@ -208,6 +208,7 @@ class Runner:
 
     def _guard(self, target: Callable, block: Block, inlets: list[Inlet],
                outlets: list[tuple[str, Outlet]]) -> None:
+        batch_policy()
         try:
             target(block, inlets, outlets)
         except LinkClosed:

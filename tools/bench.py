@@ -23,7 +23,8 @@ kernels
     stage's own input (bits/s for the framer and the BER meter).
 links
     a link hop (``stream.link``, with the wire frame) over inproc, ipc and tcp against raw
-    pyzmq PUSH/PULL sending the same frames, both ends as a thread pair: ratio to raw. On
+    pyzmq PUSH/PULL sending the same frames, both ends as a thread pair on one core (as a
+    process's block threads run; libzmq's I/O thread too), so the ratio is of the hop's cost. On
     inproc the link hands the array over beside a header-only message (``frame.encode_held``)
     while raw pyzmq carries the whole frame, so its ratio can pass 1.
 processes
@@ -79,6 +80,7 @@ from blocks.framing import Framer  # noqa: E402
 from stream import frame  # noqa: E402
 from stream.block import Block, Port, Source, StreamSpec  # noqa: E402
 from stream.chunk import Chunk  # noqa: E402
+from stream.cpus import choose_cpus, pinned  # noqa: E402
 from stream.graph import Pipeline  # noqa: E402
 from stream.link import LinkCounters, open_link  # noqa: E402
 from stream.loader import pipeline_from_dict  # noqa: E402
@@ -503,8 +505,12 @@ def bench_links(sizes: Sizes) -> tuple[dict[str, float], dict[str, float]]:
     """Link hop over raw pyzmq for the same 16k-sample frames; and link Msamples/s."""
     chunk = Chunk(TAPES["rx-ook"][:16384], 0, 250_000.0)
     ratios, speeds = {}, {}
-    ctx = zmq.Context()
-    with tempfile.TemporaryDirectory(prefix="pf-bench-") as tmp:
+    # both ends and libzmq's I/O thread on one core, as a process's block threads run by
+    # default (stream/cpus.py): the hop's cost. With the threads free on the 2-core machine,
+    # two identical raw tcp runs differed by up to 1.8x (best of 7 each), so a ratio measured
+    # that way said more about thread placement than about the link.
+    with pinned(choose_cpus("auto")), tempfile.TemporaryDirectory(prefix="pf-bench-") as tmp:
+        ctx = zmq.Context()
         for transport in ("inproc", "ipc", "tcp"):
             link_t, raw_t = [], []
             # a hop takes tens of microseconds: many short alternating runs, best of each,
@@ -516,7 +522,7 @@ def bench_links(sizes: Sizes) -> tuple[dict[str, float], dict[str, float]]:
                                         sizes.link_messages))
             ratios[transport] = min(raw_t) / min(link_t)
             speeds[transport] = sizes.link_messages * len(chunk) / min(link_t) / 1e6
-    ctx.term()
+        ctx.term()
     return ratios, speeds
 
 

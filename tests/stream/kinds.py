@@ -163,7 +163,7 @@ class Split(Source):
 
 
 class Cores(Block):
-    """Pass samples through and report the cores its thread was allowed to run on."""
+    """Pass samples through and report the cores and scheduling policy of its thread."""
 
     kind = "test_cores"
     inputs = (Port("in", _IQ_OR_REAL),)
@@ -171,11 +171,13 @@ class Cores(Block):
 
     def setup(self, inputs: dict[str, StreamSpec]) -> dict[str, StreamSpec]:
         self._cores: list[int] = []
+        self._policy = -1
         return super().setup(inputs)
 
     def process(self, chunk: Chunk) -> None:
         self._cores = sorted(os.sched_getaffinity(0))
+        self._policy = os.sched_getscheduler(0)
         self.emit(chunk.samples)
 
-    def readings(self) -> dict[str, list[int]]:
-        return {"cores": self._cores}
+    def readings(self) -> dict[str, list[int] | int]:
+        return {"cores": self._cores, "policy": self._policy}

@@ -7,7 +7,7 @@ import threading
 
 import pytest
 
-from stream.cpus import CpuSettingError, allowed_cpus, choose_cpus, parse_cpus, pinned
+from stream.cpus import CpuSettingError, allowed_cpus, batch_policy, choose_cpus, parse_cpus, pinned
 from stream.errors import PipelineError
 from stream.loader import pipeline_from_dict
 from stream.runner import Runner
@@ -95,6 +95,29 @@ def test_all_leaves_the_block_threads_where_the_system_puts_them():
 def test_the_runner_argument_overrides_the_file():
     summary = Runner(pipeline_from_dict(_doc(cpus="all")), cpus=[ALLOWED[0]]).run()
     assert summary["blocks"]["probe"]["cores"] == [ALLOWED[0]]
+
+
+@pytest.mark.skipif(not hasattr(os, "SCHED_BATCH"), reason="needs Linux scheduling policies")
+def test_block_threads_run_under_the_batch_policy_and_the_caller_keeps_its_own():
+    # sched(7): SCHED_BATCH, which an unprivileged thread may choose
+    before = os.sched_getscheduler(0)
+    summary = Runner(pipeline_from_dict(_doc())).run()
+    assert summary["blocks"]["probe"]["policy"] == os.SCHED_BATCH
+    assert os.sched_getscheduler(0) == before
+
+
+@pytest.mark.skipif(not hasattr(os, "SCHED_BATCH"), reason="needs Linux scheduling policies")
+def test_the_batch_policy_is_the_calling_threads_alone():
+    seen: list[tuple[bool, int]] = []
+
+    def inside() -> None:
+        seen.append((batch_policy(), os.sched_getscheduler(0)))
+
+    t = threading.Thread(target=inside)
+    t.start()
+    t.join()
+    assert seen == [(True, os.SCHED_BATCH)]
+    assert os.sched_getscheduler(0) != os.SCHED_BATCH
 
 
 def test_a_bad_cpus_key_is_a_pipeline_error_naming_the_key():
