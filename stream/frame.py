@@ -34,11 +34,12 @@ random id drawn when the sender starts, so a receiver can tell a restarted sende
 sequence numbers and sample indices begin again at 0) from a gap in a running one.
 
 Between two threads of one process a DATA message may be its header alone: with flag bit 1
-set, parts 1 and 2 stay in memory and the link hands them (the sample array itself, and the
-annotations JSON) to the receiving thread beside the message (:func:`encode_held`,
-``decode([header, *held_parts], port, held=True)``), checked against the header like received
-parts. This saves libzmq's zero-copy release of a large buffer (a wake-up of pyzmq's collector
-thread per message) and the cost of a multipart message. A message with bit 1 set that arrives
+set, the chunk itself stays in memory and the link hands it to the receiving thread beside
+the message (:func:`encode_held`, :func:`decode_held`, which checks the header and the chunk
+against each other; the receiver gets the sender's annotations as they are, the samples as a
+read-only view). This saves libzmq's zero-copy release of a large buffer (a wake-up of pyzmq's
+collector thread per message), the cost of a multipart message, and decoding what was never
+encoded. A message with bit 1 set that arrives
 from a socket alone (from another process or host) is rejected as ``"flags"``.
 
 Nothing read from a socket is unpickled or evaluated: the header is unpacked with
@@ -84,6 +85,7 @@ __all__ = [
     "Message",
     "MessageKind",
     "decode",
+    "decode_held",
     "encode",
     "encode_end",
     "encode_heartbeat",
@@ -239,8 +241,8 @@ def encode(chunk: Chunk, seq: int) -> list[bytes | memoryview | np.ndarray]:
     return [header, samples, annotations] if annotations else [header, samples]
 
 
-def encode_held(chunk: Chunk, seq: int) -> tuple[bytes, list[np.ndarray | bytes]]:
-    """Turn a chunk into a DATA message whose samples stay in this process (flag bit 1).
+def encode_held(chunk: Chunk, seq: int) -> tuple[bytes, Chunk]:
+    """Turn a chunk into a DATA message whose chunk stays in this process (flag bit 1).
 
     Parameters
     ----------
@@ -252,19 +254,21 @@ def encode_held(chunk: Chunk, seq: int) -> tuple[bytes, list[np.ndarray | bytes]
     Returns
     -------
     header : bytes
-        The one part to send.
-    held_parts : list
-        ``[samples]`` or ``[samples, annotations_json]`` (samples contiguous and
-        little-endian), to hand to the receiving thread, which decodes
-        ``[header, *held_parts]`` with ``held=True``.
+        The one part to send: the header :func:`encode` would give, with flag bit 1.
+    held : Chunk
+        The chunk to hand to the receiving thread (its samples contiguous and little-endian,
+        as on the wire), which checks it against the header with :func:`decode_held`.
 
     Raises
     ------
     ValueError, TypeError
-        As for :func:`encode`.
+        As for :func:`encode`: a chunk that could not travel to another process does not
+        travel between threads either (its annotations are encoded to check them).
     """
-    header, samples, annotations = _data_parts(chunk, seq, _FLAG_HELD)
-    return header, ([samples, annotations] if annotations else [samples])
+    header, samples, _ = _data_parts(chunk, seq, _FLAG_HELD)
+    if samples is not chunk.samples:
+        chunk = Chunk(samples, chunk.start, chunk.rate, chunk.annotations)
+    return header, chunk
 
 
 def _data_parts(chunk: Chunk, seq: int, flags: int) -> tuple[bytes, np.ndarray, bytes]:
@@ -402,7 +406,7 @@ def _annotation_problem(index: object, label: object, data: object) -> str | Non
 
 
 def decode(parts: Sequence[zmq.Frame | bytes | memoryview], port: str | None = None,
-           held: bool = False) -> Message:
+           ) -> Message:
     """Check and decode the parts of one received message.
 
     Parameters
@@ -412,16 +416,12 @@ def decode(parts: Sequence[zmq.Frame | bytes | memoryview], port: str | None = N
         ``copy=True`` (bytes).
     port : str or None
         The input port to name on a DATA message's chunk (``Chunk.port``).
-    held : bool
-        Whether ``parts[1:]`` were handed over beside a header by a thread of this process
-        (``parts[1]`` then is the sample array itself); False for a message read from a
-        socket alone.
 
     Returns
     -------
     Message
         The decoded message. For DATA, ``chunk.samples`` is a read-only array over the
-        received buffer or the held array (no copy), which it keeps alive.
+        received buffer (no copy), which it keeps alive.
 
     Raises
     ------
@@ -433,7 +433,7 @@ def decode(parts: Sequence[zmq.Frame | bytes | memoryview], port: str | None = N
     Sizes are checked against :data:`MAX_SAMPLES` and :data:`MAX_ANNOTATION_BYTES` before
     anything is parsed, so a hostile header cannot make the receiver allocate.
     """
-    views = _as_buffers(parts[:1]) + list(parts[1:]) if held else _as_buffers(parts)
+    views = _as_buffers(parts)
     if len(views) > 3:
         raise FrameError("parts", f"a message has 1 to 3 parts (got {len(views)})")
     magic, version, kind, code, flags, seq, start, rate, count = _unpack_header(views[0])
@@ -449,13 +449,64 @@ def decode(parts: Sequence[zmq.Frame | bytes | memoryview], port: str | None = N
     if start < 0:
         raise FrameError("start", f"start index must be >= 0 (got {start})")
     if message_kind is MessageKind.DATA:
-        if bool(flags & _FLAG_HELD) != held:
-            raise FrameError("flags", "samples held in a sending thread's memory (flag bit 1) "
-                                      "travel only beside messages inside one process")
+        if flags & _FLAG_HELD:
+            raise FrameError("flags", _HELD_FROM_OUTSIDE)
         chunk = _decode_data(views, code, flags, start, rate, count, port)
         return Message(message_kind, seq, start, chunk)
     _check_control(views, message_kind, code, flags, start, rate, count)
     return Message(message_kind, seq, start)
+
+
+_HELD_FROM_OUTSIDE = ("samples held in a sending thread's memory (flag bit 1) travel only "
+                      "beside messages inside one process")
+
+
+def decode_held(header: bytes, held: Chunk, port: str | None = None) -> Message:
+    """Check the header of a DATA message against the chunk handed over beside it.
+
+    Parameters
+    ----------
+    header : bytes
+        The message as received: a header with flag bit 1 (:func:`encode_held`).
+    held : Chunk
+        The chunk the sending thread handed over for this message.
+    port : str or None
+        The input port to name on the chunk (``Chunk.port``).
+
+    Returns
+    -------
+    Message
+        The DATA message; ``chunk.samples`` is a read-only view of the held array (no copy).
+
+    Raises
+    ------
+    FrameError
+        If the header is malformed, not a held DATA header, or describes another chunk
+        (dtype, sample count, start, rate or annotations); ``reason`` names the check.
+
+    Notes
+    -----
+    The header was built by :func:`encode_held` in this process from this very chunk, which
+    was checked then: what is checked here is that the two still belong together (a message
+    and a parcel taken out of order would be caught), at the cost of one unpacking.
+    """
+    magic, version, kind, code, flags, seq, start, rate, count = _unpack_header(header)
+    if magic != MAGIC:
+        raise FrameError("magic", f"magic must be {MAGIC!r} (got {magic!r})")
+    if version != VERSION:
+        raise FrameError("version", f"version must be {VERSION} (got {version})")
+    if kind != MessageKind.DATA or flags & ~_FLAG_ANNOTATIONS != _FLAG_HELD:
+        raise FrameError("flags", f"not a held DATA header (type {kind}, flags 0x{flags:02x})")
+    samples = held.samples
+    if _DTYPE_OF_CODE.get(code) != samples.dtype or count != samples.shape[0]:
+        raise FrameError("length", f"the header describes {count} samples of dtype code {code}, "
+                                   f"the chunk beside it {samples.shape[0]} {samples.dtype}")
+    if start != held.start or rate != held.rate \
+            or bool(flags & _FLAG_ANNOTATIONS) != bool(held.annotations):
+        raise FrameError("start", "the header describes another chunk than the one beside it")
+    view = samples.view()
+    view.setflags(write=False)
+    return Message(MessageKind.DATA, seq, start, Chunk(view, start, rate, held.annotations, port))
 
 
 def is_held(header: bytes) -> bool:
@@ -503,7 +554,6 @@ def _unpack_header(view: bytes | zmq.Frame | memoryview) -> tuple:
 def _decode_data(views: list, code: int, flags: int, start: int, rate: float, count: int,
                  port: str | None) -> Chunk:
     expected_parts = 3 if flags & _FLAG_ANNOTATIONS else 2
-    held = flags & _FLAG_HELD
     if len(views) != expected_parts:
         raise FrameError(
             "parts",
@@ -515,17 +565,17 @@ def _decode_data(views: list, code: int, flags: int, start: int, rate: float, co
         raise FrameError("dtype", f"unknown dtype code {code}")
     if count > MAX_SAMPLES:
         raise FrameError("oversized", f"{count} samples, more than MAX_SAMPLES={MAX_SAMPLES}")
-    size = views[1].nbytes if held else len(views[1])
-    if size != count * dtype.itemsize or (held and views[1].dtype != dtype):
+    size = len(views[1])
+    if size != count * dtype.itemsize:
         raise FrameError(
             "length",
             f"{count} {dtype.name} samples need {count * dtype.itemsize} bytes "
-            f"(got {size}" + (f" of {views[1].dtype}" if held else "") + ")",
+            f"(got {size})",
         )
     if not 0.0 < rate < math.inf:  # also false for NaN
         raise FrameError("rate", f"rate must be finite and > 0 (got {rate})")
     annotations = _decode_annotations(views[2]) if expected_parts == 3 else ()
-    samples = views[1].view() if held else np.frombuffer(views[1], dtype=dtype)
+    samples = np.frombuffer(views[1], dtype=dtype)
     samples.setflags(write=False)
     return Chunk(samples, start, rate, annotations, port)
 

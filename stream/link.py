@@ -7,8 +7,8 @@ chunk is dropped and counted, and the producer never waits. Only the end-of-stre
 waits on a tap, so observers always learn that the stream ended.
 
 Inside one process (``inproc://``) the samples do not go through ZeroMQ: the message carries
-the header (and annotations) only, and the array itself waits in the link's hand-over queue
-until the receiving thread takes the message it belongs to (``frame.encode_held``). ZeroMQ
+the header only, and the chunk itself waits in the link's hand-over queue until the receiving
+thread takes the message it belongs to (``frame.encode_held``, ``frame.decode_held``). ZeroMQ
 still carries every message, so backpressure, drops and sequence numbers work as they do
 between processes; what is saved is libzmq releasing each large zero-copy buffer through
 pyzmq's collector thread, one more thread wake-up per chunk per hop (a pass-through hop on
@@ -27,7 +27,6 @@ import time
 from collections import deque
 from dataclasses import dataclass
 
-import numpy as np
 import zmq
 
 from stream import frame
@@ -83,11 +82,11 @@ class LinkCounters:
         return f"<{kind} {self.label}: depth={s.depth} sent={s.sent} dropped={s.dropped}>"
 
 
-#: The parts that stay in memory beside each DATA message on an in-process link, oldest first
+#: The chunks that stay in memory beside each DATA message on an in-process link, oldest first
 #: (``frame.encode_held``). Only the sending thread appends and takes back (a refused send),
 #: only the receiving thread takes from the front, once per message whose header says so
 #: (which only code inside the process can send: the address is the runner's own).
-Parcels = deque[list[np.ndarray | bytes]]
+Parcels = deque[Chunk]
 
 
 class Outlet:
@@ -239,18 +238,21 @@ class Inlet:
         try:
             if parcels is None:
                 parts = self.sock.recv_multipart(flags=flags, copy=False)
-            else:  # a DATA message is its header alone, the rest waits in the parcels
+            else:  # a DATA message is its header alone, its chunk waits in the parcels
                 parts = [self.sock.recv(flags=flags, copy=True)]
         except zmq.Again:
             return None
         held = parcels is not None and frame.is_held(parts[0])
-        if held:
-            parts.extend(parcels.popleft() if parcels else ())
-        elif parcels is not None:
+        if parcels is not None and not held:
             while self.sock.get(zmq.RCVMORE):
                 parts.append(self.sock.recv(copy=False))
         try:
-            msg = frame.decode(parts, self.port, held=held)
+            if not held:
+                msg = frame.decode(parts, self.port)
+            elif parcels:
+                msg = frame.decode_held(parts[0], parcels.popleft(), self.port)
+            else:
+                raise frame.FrameError("parts", "a held header with no chunk handed over")
         except frame.FrameError as err:
             self.counters.rejected += 1
             log.warning("link %s: rejected frame: %s", self.counters.label, err)

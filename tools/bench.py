@@ -114,7 +114,7 @@ class Sizes:
 SIZES = {
     # long enough that a run's fixed start and stop cost (``start_stop_ms``, reported on its
     # own) is a few per cent of a receiver's run and of the two-process run
-    "full": Sizes(samples=10_000_000, process_samples=24_000_000, repeats=3,
+    "full": Sizes(samples=10_000_000, process_samples=24_000_000, repeats=5,
                   link_messages=3000, link_repeats=7,
                   memory_symbols=60_000, latency_s=3.0),
     # three repeats even when quick: single runs of the same code on a shared 2-core machine
@@ -312,11 +312,12 @@ def bench_receivers(sizes: Sizes) -> tuple[dict, dict, dict[str, float],
         n = TAPES[tape].shape[0]
         rate = float(config_doc(scheme)["pipeline"]["sample_rate"])
         receivers[scheme] = {}
-        # side by side: the reference and the 64k runtime run alternate, best of the repeats
+        # side by side: the reference and the runtime runs alternate (the 64k run right after
+        # the reference, the pair the overhead is judged on), best of the repeats
         ref_times, rt_times = [], {c: [] for c in CHUNKS}
         for _ in range(sizes.repeats):
             ref_times.append(time_reference(scheme, tape, rate))
-            for c in CHUNKS:
+            for c in sorted(CHUNKS, reverse=True):
                 rt_times[c].append(time_runtime(scheme, tape, c))
         references[scheme] = n / min(ref_times) / 1e6
         for c in CHUNKS:

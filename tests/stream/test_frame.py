@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import gc
 import json
+import math
 import struct
 import uuid
 from collections.abc import Iterator
@@ -31,6 +32,7 @@ from stream.frame import (
     FrameError,
     MessageKind,
     decode,
+    decode_held,
     encode,
     encode_end,
     encode_heartbeat,
@@ -172,17 +174,35 @@ def test_round_trip_every_dtype_without_and_with_annotations(name: str, length: 
 @FUZZ
 @given(chunk=chunks(), seq=st.integers(0, 2**64 - 1))
 def test_held_round_trip(chunk: Chunk, seq: int) -> None:
-    # a message whose samples stay in the process: the header alone travels, with flag bit 1
-    # (module docstring), and the rest is the chunk's own array and the annotations JSON
-    header, rest = encode_held(chunk, seq)
+    # a message whose chunk stays in the process: the header alone travels, with flag bit 1
+    # (module docstring), and the receiver gets the chunk's own samples, read-only
+    header, held = encode_held(chunk, seq)
     assert is_held(header)
     assert header[7] == (0x02 | (0x01 if chunk.annotations else 0))
     assert header[:7] + bytes([header[7] & 0x01]) + header[8:] == encode(chunk, seq)[0]
-    assert len(rest) == (2 if chunk.annotations else 1)
-    message = decode([header, *rest], held=True)
+    message = decode_held(header, held)
     assert (message.kind, message.seq, message.start) == (MessageKind.DATA, seq, chunk.start)
     _assert_same_chunk(message.chunk, chunk)
+    assert not message.chunk.samples.flags.writeable
     assert np.shares_memory(message.chunk.samples, chunk.samples) or chunk.samples.size == 0
+
+
+def test_held_samples_are_contiguous_as_on_the_wire_and_name_the_port() -> None:
+    every_other = np.arange(10, dtype=np.float32)[::2]
+    header, held = encode_held(Chunk(every_other, 3, 1.0), 0)
+    got = decode_held(header, held, "in").chunk
+    assert got.port == "in"
+    got = got.samples
+    assert got.flags.c_contiguous
+    np.testing.assert_array_equal(got, every_other)
+
+
+def test_a_held_chunk_that_could_not_cross_processes_is_refused_as_by_encode() -> None:
+    with pytest.raises(ValueError, match="rate"):
+        encode_held(Chunk(np.zeros(4, np.float32), 0, math.nan), 0)
+    with pytest.raises(TypeError):
+        encode_held(Chunk(np.zeros(4, np.float32), 0, 1.0, (Annotation(0, "x", {"a": {1j}}),)),
+                    0)
 
 
 def test_a_held_header_from_outside_the_process_is_rejected() -> None:
@@ -193,20 +213,38 @@ def test_a_held_header_from_outside_the_process_is_rejected() -> None:
         with pytest.raises(FrameError) as err:
             decode(parts)
         assert err.value.reason == "flags"
-    # the other way round: parts handed over beside a header that does not say so
-    plain = encode(Chunk(np.zeros(4, np.float32), 0, 1.0), 0)
-    with pytest.raises(FrameError) as err:
-        decode([plain[0], np.zeros(4, np.float32)], held=True)
-    assert err.value.reason == "flags"
+    # the other way round: a chunk handed over beside a header that does not say so
+    chunk = Chunk(np.zeros(4, np.float32), 0, 1.0)
+    for plain in (encode(chunk, 0)[0], encode_end(0, 0)[0]):
+        with pytest.raises(FrameError) as err:
+            decode_held(plain, chunk)
+        assert err.value.reason == "flags"
 
 
-@pytest.mark.parametrize("wrong", [np.zeros(5, np.float32), np.zeros(4, np.int32),
-                                   np.zeros(2, np.complex64)], ids=["count", "dtype", "type"])
-def test_held_samples_must_match_their_header(wrong: np.ndarray) -> None:
+@pytest.mark.parametrize(("wrong", "reason"), [
+    (Chunk(np.zeros(5, np.float32), 0, 1.0), "length"),
+    (Chunk(np.zeros(4, np.int16), 0, 1.0), "length"),
+    (Chunk(np.zeros(4, np.complex64), 0, 1.0), "length"),
+    (Chunk(np.zeros(4, np.float32), 4, 1.0), "start"),
+    (Chunk(np.zeros(4, np.float32), 0, 2.0), "start"),
+    (Chunk(np.zeros(4, np.float32), 0, 1.0, (Annotation(0, "x"),)), "start"),
+], ids=["count", "dtype", "type", "start", "rate", "annotations"])
+def test_a_held_chunk_must_be_the_one_its_header_describes(wrong: Chunk, reason: str) -> None:
     header, _ = encode_held(Chunk(np.zeros(4, np.float32), 0, 1.0), 0)
     with pytest.raises(FrameError) as err:
-        decode([header, wrong], held=True)
-    assert err.value.reason == "length"
+        decode_held(header, wrong)
+    assert err.value.reason == reason
+
+
+def test_a_malformed_held_header_is_rejected_naming_the_check() -> None:
+    chunk = Chunk(np.zeros(4, np.float32), 0, 1.0)
+    header, _ = encode_held(chunk, 0)
+    for bad, reason in ((header[:-1], "truncated"), (header + b"x", "length"),
+                        (b"XXXX" + header[4:], "magic"), (header[:4] + b"\x09" + header[5:],
+                                                          "version")):
+        with pytest.raises(FrameError) as err:
+            decode_held(bad, chunk)
+        assert err.value.reason == reason
 
 
 def test_is_held_reads_only_well_formed_headers() -> None:

@@ -331,6 +331,25 @@ def test_a_whole_frame_from_another_sender_does_not_take_a_held_array(ctx):
         inlet.close()
 
 
+def test_a_held_header_with_no_chunk_beside_it_is_rejected_and_counted(ctx):
+    # only this link's outlet hands chunks over: a held header from any other sender finds no
+    # parcel, and is a rejected frame, not a crash and not another message's samples
+    address = _address()
+    outlet, inlet, _ = _open(ctx, tap=False, depth=8, address=address)
+    rogue = _injector(ctx, address)
+    try:
+        header, _ = frame.encode_held(_chunk(2), 0)
+        rogue.send(header)
+        assert _receive(inlet) is None
+        assert inlet.counters.rejected == 1
+        outlet.send(_chunk(3))
+        assert _check_pairing(_receive(inlet)) == 3
+    finally:
+        rogue.close(linger=0)
+        outlet.close()
+        inlet.close()
+
+
 def test_statistics_are_a_frozen_record_and_repr_says_what_it_holds():
     counters = LinkCounters("src.out ~> eye.in", tap=True)
     counters.sent, counters.dropped = 5, 2
