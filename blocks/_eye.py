@@ -1,4 +1,4 @@
-"""Eye diagrams: traces of two symbol periods resampled on a fixed grid, and the eye opening.
+"""Eye diagrams: traces of two symbol periods resampled on a fixed grid, its opening and Q.
 
 The observed stream (the matched-filter output, or the frequency-corrected stream of 2-FSK)
 has any number of samples per symbol. Each trace starts half a symbol before the optimum
@@ -30,6 +30,7 @@ __all__ = [
     "QUANTITIES",
     "eye_opening",
     "histogram_add",
+    "q_factor",
     "trace_instants",
     "trace_quantity",
     "trace_starts",
@@ -320,3 +321,38 @@ def eye_opening(counts: np.ndarray, levels: np.ndarray, columns: np.ndarray,
         return nan
     opening = ((mu1 - 3.0 * s1) - (mu0 + 3.0 * s0)) / (mu1 - mu0)
     return min(max(opening, 0.0), 1.0), mu0, s0, mu1, s1
+
+
+def q_factor(mu0: float, s0: float, mu1: float, s1: float) -> float:
+    """Q factor of two decision levels: their distance over the sum of their spreads.
+
+    Parameters
+    ----------
+    mu0, s0, mu1, s1 : float
+        Mean and standard deviation of the lower and the upper level (as ``eye_opening``
+        returns them).
+
+    Returns
+    -------
+    float
+        ``Q = (mu1 - mu0) / (s0 + s1)``; infinite for two spread-free distinct levels, NaN
+        without data or with ``mu1 <= mu0``.
+
+    Notes
+    -----
+    With Gaussian levels and the threshold ``(s1 mu0 + s0 mu1) / (s0 + s1)``, each level lies
+    ``Q`` of its own deviations from the threshold, so the error rate is
+    ``Q(Q) = erfc(Q / sqrt 2) / 2`` [1]_. Where the 3-sigma ``eye_opening`` is already shut
+    (``Q < 3``) it still ranks eyes: ``Q = 3`` is about 1.3e-3 and ``Q = 2`` about 2.3e-2.
+    The quantities of an eye here are not Gaussian at the instant (a Rician envelope, a
+    product of two noisy samples), so ``Q`` is a figure of merit, not a BER estimate.
+
+    References
+    ----------
+    .. [1] S. D. Personick, "Receiver design for digital fiber optic communication systems",
+       Bell Syst. Tech. J. 52(6), 843-874, 1973 (the Q of a two-level receiver; from memory).
+    """
+    if not mu1 > mu0:
+        return math.nan
+    spread = s0 + s1
+    return (mu1 - mu0) / spread if spread > 0 else math.inf

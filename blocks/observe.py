@@ -14,7 +14,14 @@ from typing import Any
 
 import numpy as np
 
-from blocks._eye import QUANTITIES, eye_opening, histogram_add, trace_quantity, trace_starts
+from blocks._eye import (
+    QUANTITIES,
+    eye_opening,
+    histogram_add,
+    q_factor,
+    trace_quantity,
+    trace_starts,
+)
 from blocks._fsk_detect import tone_matrix
 from blocks._mixer import tone_row
 from blocks._scratch import HeldSamples, work_array
@@ -47,7 +54,7 @@ def _db(value: float) -> float | None:
 
 
 class Eye(Block):
-    """Eye diagram over two symbol periods, with its own spectral-line timing, and its opening."""
+    """Eye diagram over two symbol periods, with its own spectral-line timing, its opening and Q."""
 
     kind = "eye"
     inputs = (Port("in", "complex64", "matched-filter output (2-FSK: the stream before timing)"),)
@@ -274,8 +281,10 @@ class Eye(Block):
         return eye_opening(self._counts, self._axes()[1], self._columns)
 
     def readings(self) -> dict[str, Any]:
-        opening = self.opening()[0]
+        opening, *clusters = self.opening()
+        q = q_factor(*clusters)
         return {"eye_opening": None if math.isnan(opening) else opening,
+                "eye_q": None if math.isnan(q) else q,
                 "eye_traces": self._traces, "eye_outside": self._outside}
 
     def views(self) -> dict[str, Any]:
@@ -294,6 +303,7 @@ class Eye(Block):
             "counts": np.round(self._counts, 3).tolist(),
             "traces": self._traces,
             "opening": num(opening),
+            "q": num(q_factor(mu0, s0, mu1, s1)),
             "clusters": {"low_mean": num(mu0), "low_std": num(s0),
                          "high_mean": num(mu1), "high_std": num(s1)},
         }

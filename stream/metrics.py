@@ -28,6 +28,7 @@ name                                       type       labels, meaning
 ``phasefree_esn0_db_estimate``             gauge      block; estimated Es/N0 in dB
 ``phasefree_cfo_hz_estimate``              gauge      block; estimated carrier offset in Hz
 ``phasefree_eye_opening_ratio``            gauge      block; eye opening (0 closed .. 1 open)
+``phasefree_eye_q_factor``                 gauge      block; eye Q, level distance over spreads
 ``phasefree_reading``                      gauge      block, kind, name; any other numeric
                                                       reading (a source's settings among them:
                                                       a simulator's ``ebn0_db`` is its set value,
@@ -81,6 +82,7 @@ READING_METRICS: dict[str, tuple[str, str, str]] = {
     "esn0_db": ("esn0_db_estimate", "gauge", "Estimated Es/N0 in dB"),
     "cfo_hz": ("cfo_hz_estimate", "gauge", "Estimated carrier frequency offset in Hz"),
     "eye_opening": ("eye_opening_ratio", "gauge", "Eye opening, 0 closed to 1 fully open"),
+    "eye_q": ("eye_q_factor", "gauge", "Eye Q factor, level distance over the sum of spreads"),
 }
 
 _BLOCK_COUNTERS = (

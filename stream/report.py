@@ -10,7 +10,8 @@ __all__ = ["LiveView", "format_summary", "json_line", "plain"]
 
 #: Readings shown in the live table and the summary, in this order, when a block has them.
 HEADLINE = ("ber", "ber_low", "ber_high", "bits", "errors", "ebn0_db", "esn0_db", "cfo_hz",
-            "packets", "crc_failures", "sync_losses", "eye_opening", "samples_written")
+            "packets", "crc_failures", "sync_losses", "eye_opening", "eye_q",
+            "samples_written")
 
 
 def plain(value: Any) -> Any:

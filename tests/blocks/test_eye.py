@@ -1,4 +1,4 @@
-"""Eye kernels: trace starts and grid, phase-free quantities, histogram and eye opening."""
+"""Eye kernels: trace starts and grid, phase-free quantities, histogram, eye opening and Q."""
 
 from __future__ import annotations
 
@@ -6,9 +6,17 @@ import math
 
 import numpy as np
 import pytest
+from scipy import stats
 from scipy.interpolate import lagrange
 
-from blocks._eye import eye_opening, histogram_add, trace_instants, trace_quantity, trace_starts
+from blocks._eye import (
+    eye_opening,
+    histogram_add,
+    q_factor,
+    trace_instants,
+    trace_quantity,
+    trace_starts,
+)
 
 FS = 40_000.0
 
@@ -145,3 +153,28 @@ def test_eye_opening_of_two_gaussian_levels():
     histogram_add(wide, np.repeat(spread[:, None], 8, axis=1), -2.0, 2.0)
     assert eye_opening(wide, levels, np.array([2]))[0] == 0.0
     assert math.isnan(eye_opening(np.zeros((400, 8)), levels, np.array([2]))[0])
+
+
+def test_q_factor_of_a_shut_eye_predicts_the_error_fraction_of_gaussian_levels():
+    # Levels -1 (spread 0.3) and +1 (spread 0.5): the 3-sigma opening is shut, Q = 2 / 0.8 =
+    # 2.5. At the threshold (s1 mu0 + s0 mu1) / (s0 + s1) each level errs with probability
+    # Q(2.5) (Personick 1973, from memory), here scipy.stats.norm.sf, and the sampled levels'
+    # error fractions agree with it.
+    rng = np.random.default_rng(8)
+    low, high = rng.normal(-1, 0.3, 200_000), rng.normal(1, 0.5, 200_000)
+    levels = np.linspace(-4, 4, 801)[:-1] + 0.005
+    counts = np.zeros((800, 4))
+    histogram_add(counts, np.repeat(np.concatenate([low, high])[:, None], 4, axis=1), -4.0, 4.0)
+    opening, mu0, s0, mu1, s1 = eye_opening(counts, levels, np.array([1]))
+    assert opening == 0.0
+    q = q_factor(mu0, s0, mu1, s1)
+    # the two-means cut assigns the far tails to the wrong level: a few per cent off
+    assert q == pytest.approx(2.5, rel=0.04)
+    threshold = (0.5 * -1 + 0.3 * 1) / 0.8
+    errors = (np.count_nonzero(low > threshold) + np.count_nonzero(high < threshold)) / 400_000
+    assert errors == pytest.approx(stats.norm.sf(2.5), rel=0.05)
+    assert stats.norm.sf(q) == pytest.approx(errors, rel=0.12)
+    # no spread: infinite; reversed or missing levels: no figure
+    assert q_factor(-1.0, 0.0, 1.0, 0.0) == math.inf
+    assert math.isnan(q_factor(1.0, 0.1, -1.0, 0.1))
+    assert math.isnan(q_factor(math.nan, math.nan, math.nan, math.nan))

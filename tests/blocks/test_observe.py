@@ -100,6 +100,18 @@ def test_ebn0_estimate_is_within_one_db_of_the_set_value(modulation):
 
 
 # -- eye ------------------------------------------------------------------------------------------
+@pytest.mark.parametrize("modulation", ["ook", "2fsk", "dbpsk", "dqpsk"])
+def test_eye_q_ranks_eyes_the_opening_calls_shut(modulation):
+    # At 4 and 7 dB the 3-sigma opening is 0 for every scheme; Q (blocks._eye.q_factor) still
+    # grows with Eb/N0, and the picture's figure is the reading.
+    eyes = [chain(modulation, e, symbols=8_000).blocks["m_eye"] for e in (4.0, 7.0, 10.0)]
+    readings = [eye.readings() for eye in eyes]
+    assert readings[0]["eye_opening"] == readings[1]["eye_opening"] == 0.0
+    q = [r["eye_q"] for r in readings]
+    assert q[0] + 0.05 < q[1] < q[2] - 0.05, q
+    assert eyes[2].views()["q"] == pytest.approx(q[2], rel=1e-12)
+
+
 def centre_peaks(views: dict) -> tuple[float, float, float]:
     """Most frequent level below and above the cut between the clusters, at the optimum
     instants; and the width of one level row."""
