@@ -95,6 +95,12 @@ class HeldSamples:
         self._store[self._at + held:self._at + held + n] = x
         self.samples = self._store[self._at:self._at + held + n]
 
+    def restart(self, index: int) -> None:
+        """Let go of every held sample; the next one appended is at absolute ``index``."""
+        self._at += self.samples.shape[0]
+        self.samples = self._store[self._at:self._at]
+        self.start = int(index)
+
     def drop_before(self, index: int) -> None:
         """Let go of the held samples before absolute ``index``."""
         k = min(index - self.start, self.samples.shape[0])

@@ -135,13 +135,20 @@ class Eye(Block):
     # -- stream ------------------------------------------------------------------------------
     def process(self, chunk: Chunk) -> None:
         require_finite(self, chunk)
+        if chunk.start != self._input.end:
+            self._restart(chunk.start)
         self._input.append(chunk.samples)
         end = self._input.end
-        self._close_windows(end // self._window - self._windows_done)
+        self._close_windows(max(0, end // self._window - self._windows_done))
         self._trim()
 
     def finish(self) -> None:
         """Place the traces of the incomplete last window with its own timing estimate."""
+        self._close_partial()
+        self._pending = np.zeros(0)
+
+    def _close_partial(self) -> None:
+        """Close the window the held samples end inside, with its own timing estimate."""
         a = self._windows_done * self._window
         length = self._input.end - a
         if length > 0:
@@ -149,7 +156,20 @@ class Eye(Block):
             starts, _ = trace_starts(theta, a, length, self._sps, self.p.traces_per_window)
             self._pending = np.concatenate((self._pending, starts))
             self._close_windows(0)
+
+    def _restart(self, start: int) -> None:
+        """Go on at absolute sample ``start`` after a hole (chunks a tap dropped).
+
+        The samples on either side are never joined: the traces of the window the hole cuts
+        are placed as at the end of a stream, those that would span it are dropped, and the
+        windows go on at the first whole one after ``start`` (windows and timing phase stay
+        on the absolute index, so the eye's time axis holds across the hole). The histogram
+        is kept.
+        """
+        self._close_partial()
         self._pending = np.zeros(0)
+        self._input.restart(start)
+        self._windows_done = -(-start // self._window)
 
     def _timing(self, a: int, count: int, length: int) -> tuple[np.ndarray, np.ndarray | None]:
         """Timing phase of ``count`` windows of ``length`` samples from absolute sample ``a``.
@@ -162,7 +182,7 @@ class Eye(Block):
         off = a - self._input.start
         if self.p.quantity == "frequency":
             span = max(1, round(self._sps))
-            lo = max(0, a - (span - 1))
+            lo = max(self._input.start, a - (span - 1))
             x = self._input.samples[lo - self._input.start:off + count * length]
             z = tone_metric(x, self.p.deviation_hz / self._rate, span)[0][a - lo:]
             power = None
@@ -335,6 +355,7 @@ class Spectrum(Block):
         self._win, self._scale, self._enbw = design_window(nfft, rate, self.p.window)
         self._hop = max(1, nfft - round(self.p.overlap * nfft))
         self._state: SpectrumState | None = None
+        self._next = 0
         self._avg: np.ndarray | None = None
         self._count = 0
         self._freqs = self.p.center_hz + np.fft.fftshift(np.fft.fftfreq(nfft, 1.0 / rate))
@@ -342,6 +363,9 @@ class Spectrum(Block):
 
     def process(self, chunk: Chunk) -> None:
         require_finite(self, chunk)
+        if chunk.start != self._next:           # a hole (chunks a tap dropped): no segment
+            self._state = None                  # spans it
+        self._next = chunk.stop
         power, self._state = periodograms(chunk.samples, self._win, self._hop, self._state)
         self._avg, self._count = update_average(self._avg, self._count, power, self.p.average)
 

@@ -40,6 +40,7 @@ def split(signal: np.ndarray, cuts: Sequence[int]) -> list[np.ndarray]:
 
 def run_block(block: Block, pieces: Sequence[np.ndarray], rate: float,
               annotations: Sequence[Annotation] = (), port: str | None = None,
+              starts: Sequence[int] | None = None,
               ) -> tuple[dict[str, np.ndarray], dict[str, list[Annotation]]]:
     """Configure ``block`` for one input stream, feed ``pieces`` in order, then finish.
 
@@ -55,6 +56,10 @@ def run_block(block: Block, pieces: Sequence[np.ndarray], rate: float,
         Input annotations (absolute indices); each goes with the piece that holds its index.
     port : str or None
         Input port name (None: the block's only input).
+    starts : sequence of int, optional
+        Absolute index of each piece's first sample (default: each piece right after the
+        one before, from 0); a jump is a hole in the stream, as a tap that dropped chunks
+        leaves.
 
     Returns
     -------
@@ -75,7 +80,8 @@ def run_block(block: Block, pieces: Sequence[np.ndarray], rate: float,
             notes[name].extend(chunk.annotations)
 
     start = 0
-    for piece in pieces:
+    for i, piece in enumerate(pieces):
+        start = start if starts is None else int(starts[i])
         stop = start + len(piece)
         mine = tuple(a for a in annotations if start <= a.index < stop)
         piece = piece.copy()

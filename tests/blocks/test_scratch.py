@@ -37,13 +37,18 @@ def test_large_requests_are_not_kept():
     assert a.shape == (count,) and not np.shares_memory(a, b)
 
 
-def test_held_samples_match_a_plain_concatenation_through_appends_and_drops():
+def test_held_samples_match_a_plain_concatenation_through_appends_drops_and_holes():
     # reference: the stream kept whole, sliced at the held range (a plain numpy model)
     rng = np.random.default_rng(3)
     held = HeldSamples()
     stream = np.zeros(0, np.complex64)
     for _ in range(200):
         x = (rng.normal(size=rng.integers(0, 300)) + 1j).astype(np.complex64)
+        if rng.random() < 0.1:                          # a hole: restart further on
+            hole = int(rng.integers(0, 1_000))
+            held.restart(held.end + hole)
+            stream = np.concatenate((stream, np.full(hole, np.nan, np.complex64)))
+            assert held.samples.shape[0] == 0 and held.start == stream.shape[0]
         held.append(x)
         stream = np.concatenate((stream, x))
         held.drop_before(held.start + int(rng.integers(0, held.samples.shape[0] + 50)))
