@@ -13,7 +13,9 @@ receivers
     chunk sizes 4k, 16k and 64k: Msamples/s of receiver input.
 references
     the same blocks, configured the same way, called in order in one thread with no runtime
-    (64k chunks): the runtime's overhead is ``receivers[..]["65536"] / references[..]``.
+    (64k chunks): the runtime's overhead is ``receivers[..]["65536"] / references[..]``. The
+    reference runs on the one core the runtime pins its block threads to, so a neighbour's
+    load on that core slows both sides, rather than only the pinned one.
 start_stop_ms
     a run of one 64k chunk through the runtime: the fixed cost of starting the block threads
     and ending the stream through them, paid once per run. The receivers' runs are long
@@ -303,30 +305,38 @@ def bench_receivers(sizes: Sizes) -> tuple[dict, dict, dict[str, float],
     references: dict[str, float] = {}
     start_stop: dict[str, float] = {}
     captured: dict[str, dict[str, list[Chunk]]] = {}
-    for scheme in SCHEMES:
-        tape = f"rx-{scheme}"
-        TAPES[tape] = generate_tape(scheme, sizes.samples)
-        TAPES[f"one-{scheme}"] = TAPES[tape][:REFERENCE_CHUNK]
-        start_stop[scheme] = 1e3 * best_of(sizes.repeats, lambda s=scheme: time_runtime(
-            s, f"one-{s}", REFERENCE_CHUNK))
-        n = TAPES[tape].shape[0]
-        rate = float(config_doc(scheme)["pipeline"]["sample_rate"])
-        receivers[scheme] = {}
-        # side by side: the reference and the runtime runs alternate (the 64k run right after
-        # the reference, the pair the overhead is judged on), best of the repeats
-        ref_times, rt_times = [], {c: [] for c in CHUNKS}
-        for _ in range(sizes.repeats):
-            ref_times.append(time_reference(scheme, tape, rate))
-            for c in sorted(CHUNKS, reverse=True):
-                rt_times[c].append(time_runtime(scheme, tape, c))
-        references[scheme] = n / min(ref_times) / 1e6
-        for c in CHUNKS:
-            receivers[scheme][str(c)] = n / min(rt_times[c]) / 1e6
-        inline = Inline(replay_pipeline(scheme, tape, REFERENCE_CHUNK), capture=True)
-        inline.feed(TAPES[tape], REFERENCE_CHUNK, rate)
-        assert inline.inputs is not None
-        captured[scheme] = inline.inputs
+    # the reference on the core the runtime pins its block threads to ("auto": the caller's),
+    # so neither side escapes to the other core when a neighbour loads one of them
+    with pinned(choose_cpus("auto")):
+        for scheme in SCHEMES:
+            (receivers[scheme], references[scheme], start_stop[scheme],
+             captured[scheme]) = _bench_scheme(scheme, sizes)
     return receivers, references, start_stop, captured
+
+
+def _bench_scheme(scheme: str, sizes: Sizes,
+                  ) -> tuple[dict[str, float], float, float, dict[str, list[Chunk]]]:
+    """One scheme's runtime figures per chunk size, reference, start and stop cost (ms) and
+    its blocks' captured inputs."""
+    tape = f"rx-{scheme}"
+    TAPES[tape] = generate_tape(scheme, sizes.samples)
+    TAPES[f"one-{scheme}"] = TAPES[tape][:REFERENCE_CHUNK]
+    start_stop = 1e3 * best_of(sizes.repeats, lambda: time_runtime(
+        scheme, f"one-{scheme}", REFERENCE_CHUNK))
+    n = TAPES[tape].shape[0]
+    rate = float(config_doc(scheme)["pipeline"]["sample_rate"])
+    # side by side: the reference and the runtime runs alternate (the 64k run right after
+    # the reference, the pair the overhead is judged on), best of the repeats
+    ref_times, rt_times = [], {c: [] for c in CHUNKS}
+    for _ in range(sizes.repeats):
+        ref_times.append(time_reference(scheme, tape, rate))
+        for c in sorted(CHUNKS, reverse=True):
+            rt_times[c].append(time_runtime(scheme, tape, c))
+    receivers = {str(c): n / min(rt_times[c]) / 1e6 for c in CHUNKS}
+    inline = Inline(replay_pipeline(scheme, tape, REFERENCE_CHUNK), capture=True)
+    inline.feed(TAPES[tape], REFERENCE_CHUNK, rate)
+    assert inline.inputs is not None
+    return receivers, n / min(ref_times) / 1e6, start_stop, inline.inputs
 
 
 # ----------------------------------------------------------------------------------------------
