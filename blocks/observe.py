@@ -144,11 +144,6 @@ class Eye(Block):
 
     def finish(self) -> None:
         """Place the traces of the incomplete last window with its own timing estimate."""
-        self._close_partial()
-        self._pending = np.zeros(0)
-
-    def _close_partial(self) -> None:
-        """Close the window the held samples end inside, with its own timing estimate."""
         a = self._windows_done * self._window
         length = self._input.end - a
         if length > 0:
@@ -156,6 +151,7 @@ class Eye(Block):
             starts, _ = trace_starts(theta, a, length, self._sps, self.p.traces_per_window)
             self._pending = np.concatenate((self._pending, starts))
             self._close_windows(0)
+        self._pending = np.zeros(0)
 
     def _restart(self, start: int) -> None:
         """Go on at absolute sample ``start`` after a hole (chunks a tap dropped).
@@ -166,8 +162,7 @@ class Eye(Block):
         on the absolute index, so the eye's time axis holds across the hole). The histogram
         is kept.
         """
-        self._close_partial()
-        self._pending = np.zeros(0)
+        self.finish()
         self._input.restart(start)
         self._windows_done = -(-start // self._window)
 
