@@ -58,13 +58,17 @@ class Pipeline:
         Chunks each link holds before its producer waits.
     cpus : str or tuple of int
         Cores for the block threads (``stream.cpus``): ``"auto"``, ``"all"`` or core numbers.
+    observers : str
+        ``"background"``: the blocks behind taps run below the receive path's priority;
+        ``"equal"``: beside it (``stream.cpus``).
     """
 
     def __init__(self, name: str = "pipeline", queue_depth: int = 8,
-                 cpus: str | tuple[int, ...] = "auto") -> None:
+                 cpus: str | tuple[int, ...] = "auto", observers: str = "background") -> None:
         self.name = name
         self.queue_depth = queue_depth
         self.cpus = cpus
+        self.observers = observers
         self.blocks: dict[str, Block] = {}
         self.edges: list[Edge] = []
         self._keys: dict[str, str] = {}
@@ -137,6 +141,16 @@ class Pipeline:
             for ups in pending.values():
                 ups.difference_update(ready)
         return done
+
+    def behind_taps(self) -> set[str]:
+        """Ids of the observers: the blocks that every path from a source reaches through a
+        tap (a block fed by taps, and the blocks fed only by such blocks)."""
+        behind: set[str] = set()
+        for bid in self.order():
+            ins = self.inputs_of(bid)
+            if ins and all(e.tap or e.src in behind for e in ins):
+                behind.add(bid)
+        return behind
 
     def key_of(self, block_id: str) -> str:
         """Where the block is declared in the pipeline file."""

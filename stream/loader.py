@@ -56,7 +56,7 @@ from pathlib import Path
 from typing import Any
 
 from stream import registry
-from stream.cpus import CpuSettingError, parse_cpus
+from stream.cpus import OBSERVER_POLICIES, CpuSettingError, parse_cpus
 from stream.errors import ParamError, PipelineError
 from stream.graph import Pipeline, parse_endpoint
 from stream.params import Param
@@ -73,6 +73,8 @@ PIPELINE_KEYS = {
     "links": "list of chains 'a -> b -> c' ('~>' makes a lossy tap)",
     "queue_depth": "chunks a link holds before it applies backpressure",
     "cpus": "cores of the block threads: 'auto' (one core per process), 'all', or a list",
+    "observers": "priority of the blocks behind taps: 'background' (below the receive path) "
+                 "or 'equal'",
     "include": "other pipeline files whose blocks, links, parts and crossings join this one",
 }
 #: Top-level tables of a pipeline file.
@@ -80,6 +82,7 @@ TABLES = ("pipeline", "blocks", "parts", "crossings")
 # where an included file's table came from (not a TOML key: TOML keys cannot hold a NUL)
 _SOURCE = "\0file"
 _QUEUE_DEPTH = Param("queue_depth", int, 8, low=1, high=1 << 16)
+_OBSERVERS = Param("observers", str, OBSERVER_POLICIES[0], choices=OBSERVER_POLICIES)
 #: Keys of ``[pipeline]`` handed down to blocks that declare a parameter of the same name.
 INHERITED = ("sample_rate", "symbol_rate")
 
@@ -246,7 +249,12 @@ def _assemble(docs: list[dict[str, Any]], overrides: Sequence[str]) -> Pipeline:
         cpus = parse_cpus(head.get("cpus", "auto"))
     except CpuSettingError as err:
         raise PipelineError("pipeline.cpus", str(err)) from None
-    pipe = Pipeline(str(head.get("name", "pipeline")), queue_depth=depth, cpus=cpus)
+    try:
+        observers = _OBSERVERS.check(head.get("observers", _OBSERVERS.default))
+    except ParamError as err:
+        raise PipelineError(f"pipeline.{err.name}", err.message) from None
+    pipe = Pipeline(str(head.get("name", "pipeline")), queue_depth=depth, cpus=cpus,
+                    observers=observers)
     for doc, own_head in zip(docs, heads, strict=True):
         inherited = _inherited(own_head)
         blocks = doc.get("blocks")

@@ -22,7 +22,14 @@ import zmq
 from threadpoolctl import ThreadpoolController
 
 from stream.block import Block, Source
-from stream.cpus import batch_policy, choose_cpus, parse_cpus, pinned
+from stream.cpus import (
+    OBSERVER_POLICIES,
+    background_priority,
+    batch_policy,
+    choose_cpus,
+    parse_cpus,
+    pinned,
+)
 from stream.crossing import NetworkEnds
 from stream.errors import BlockFailed, LinkClosed
 from stream.frame import Message, MessageKind
@@ -69,11 +76,15 @@ class Runner:
     cpus : str, int, list of int or None
         Cores of the block threads (``stream.cpus``; default: the pipeline's ``cpus``,
         normally ``"auto"``: one core per process).
+    observers : str or None
+        ``"background"``: the blocks behind taps run below the receive path's priority,
+        ``"equal"``: beside it (``stream.cpus``; default: the pipeline's ``observers``).
     """
 
     def __init__(self, pipeline: Pipeline, queue_depth: int | None = None,
                  drain_s: float = 1.5, part: PartPlan | None = None,
-                 cpus: str | int | list[int] | None = None) -> None:
+                 cpus: str | int | list[int] | None = None,
+                 observers: str | None = None) -> None:
         if not pipeline.validated:
             pipeline.validate()
         self.pipeline = pipeline
@@ -93,6 +104,12 @@ class Runner:
         setting = pipeline.cpus if cpus is None else parse_cpus(cpus)
         #: The cores the block threads run on (None: wherever the system puts them).
         self.cpus = choose_cpus(setting, part_index)
+        self.observers = pipeline.observers if observers is None else observers
+        if self.observers not in OBSERVER_POLICIES:
+            raise ValueError(f"observers must be one of {', '.join(OBSERVER_POLICIES)} "
+                             f"(got {self.observers!r})")
+        #: Blocks whose threads run in the background (``stream.cpus``).
+        self.background = pipeline.behind_taps() if self.observers == "background" else set()
         self._readings: dict[str, dict[str, Any]] = {bid: {} for bid in pipeline.blocks}
         self._views: dict[str, dict[str, Any]] = {bid: {} for bid in pipeline.blocks}
         self._threads: list[threading.Thread] = []
@@ -209,6 +226,8 @@ class Runner:
     def _guard(self, target: Callable, block: Block, inlets: list[Inlet],
                outlets: list[tuple[str, Outlet]]) -> None:
         batch_policy()
+        if block.id in self.background:
+            background_priority()
         try:
             target(block, inlets, outlets)
         except LinkClosed:
@@ -349,6 +368,7 @@ class Runner:
         out["event"] = "summary"
         out["reason"] = self.reason
         out["cpus"] = "all" if self.cpus is None else sorted(self.cpus)
+        out["observers"] = self.observers
         if self.failure is not None:
             out["error"] = {"block": self.failure.block_id, "message": str(self.failure.error),
                             "type": type(self.failure.error).__name__}

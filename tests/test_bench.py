@@ -37,7 +37,9 @@ def test_bench_quick_json_reports_every_figure():
         assert set(result["receivers"][scheme]) == {"4096", "16384", "65536"}
         assert all(positive(v) for v in result["receivers"][scheme].values())
         assert positive(result["references"][scheme])
+        assert positive(result["receivers_equal"][scheme])
         assert positive(result["overhead"][scheme])
+        assert 0 < result["observed"][scheme] <= 1
         assert positive(result["start_stop_ms"][scheme])
     assert set(KERNELS) <= set(result["kernels"])
     assert all(positive(v) for v in result["kernels"].values())
@@ -59,7 +61,9 @@ def test_bench_table_names_the_targets():
     figures = {s: {"4096": 1.0, "16384": 2.0, "65536": 40.0} for s in SCHEMES}
     result = {
         "receivers": figures, "references": dict.fromkeys(SCHEMES, 42.0),
-        "overhead": dict.fromkeys(SCHEMES, 40 / 42),
+        "receivers_equal": dict.fromkeys(SCHEMES, 38.0),
+        "observed": dict.fromkeys(SCHEMES, 0.37),
+        "overhead": dict.fromkeys(SCHEMES, 38 / 42),
         "realtime_margin": dict.fromkeys(SCHEMES, 40 / 2.4),
         "start_stop_ms": dict.fromkeys(SCHEMES, 12.0),
         "kernels": {"decimate": 100.0}, "links": {"inproc": 0.8}, "link_msps": {"inproc": 300.0},
@@ -68,6 +72,6 @@ def test_bench_table_names_the_targets():
         "peak_rss_mb": 150.0, "rss_growth": 1.01, "latency_ms": 2.5,
     }
     text = bench.table(result)
-    assert "ook" in text and "0.95" in text and "16.7" in text
+    assert "ook" in text and "0.90" in text and "16.7" in text and "0.37" in text
     assert "1.60x" in text and "150.0 MB" in text and "cut at cfo -> mf" in text
     assert "ook 12 ms" in text

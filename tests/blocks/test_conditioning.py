@@ -134,8 +134,9 @@ def test_infinite_input_is_refused_with_its_index(bad):
 
 
 def test_finite_input_whose_sum_overflows_is_accepted():
-    # The fast check sums the chunk; a sum that overflows float32 (largest value about
-    # 3.4e38, IEEE 754 binary32) must fall back to the sample-by-sample check, not refuse.
+    # The fast check sums the squares of the chunk; a sum that overflows float32 (largest
+    # value about 3.4e38, IEEE 754 binary32) must fall back to the sample-by-sample check,
+    # not refuse.
     x = np.full(64, 3e38 + 3e38j, dtype=np.complex64)
     out, _ = run_block(make_block("dc_block", corner_hz=40.0), [x], FS)
     assert out["out"].shape == (64,)

@@ -163,7 +163,8 @@ class Split(Source):
 
 
 class Cores(Block):
-    """Pass samples through and report the cores and scheduling policy of its thread."""
+    """Pass samples through and report the cores, scheduling policy and nice value of its
+    thread."""
 
     kind = "test_cores"
     inputs = (Port("in", _IQ_OR_REAL),)
@@ -172,12 +173,14 @@ class Cores(Block):
     def setup(self, inputs: dict[str, StreamSpec]) -> dict[str, StreamSpec]:
         self._cores: list[int] = []
         self._policy = -1
+        self._nice: int | None = None
         return super().setup(inputs)
 
     def process(self, chunk: Chunk) -> None:
         self._cores = sorted(os.sched_getaffinity(0))
         self._policy = os.sched_getscheduler(0)
+        self._nice = os.getpriority(os.PRIO_PROCESS, threading.get_native_id())
         self.emit(chunk.samples)
 
-    def readings(self) -> dict[str, list[int] | int]:
-        return {"cores": self._cores, "policy": self._policy}
+    def readings(self) -> dict[str, list[int] | int | None]:
+        return {"cores": self._cores, "policy": self._policy, "nice": self._nice}

@@ -3,11 +3,21 @@
 from __future__ import annotations
 
 import os
+import sys
 import threading
 
 import pytest
 
-from stream.cpus import CpuSettingError, allowed_cpus, batch_policy, choose_cpus, parse_cpus, pinned
+from stream.cpus import (
+    BACKGROUND_STEP,
+    CpuSettingError,
+    allowed_cpus,
+    background_priority,
+    batch_policy,
+    choose_cpus,
+    parse_cpus,
+    pinned,
+)
 from stream.errors import PipelineError
 from stream.loader import pipeline_from_dict
 from stream.runner import Runner
@@ -123,3 +133,63 @@ def test_the_batch_policy_is_the_calling_threads_alone():
 def test_a_bad_cpus_key_is_a_pipeline_error_naming_the_key():
     with pytest.raises(PipelineError, match=r"pipeline\.cpus"):
         pipeline_from_dict(_doc(cpus="many"))
+
+
+def _watched(**head) -> dict:
+    """The probe on the receive path, and two probes behind a tap (``watch`` fed by the tap,
+    ``after`` fed by ``watch`` over a lossless link)."""
+    doc = _doc(**head)
+    doc["pipeline"]["links"] = ["src -> probe -> sink", "src ~> watch -> after -> sink2"]
+    doc["blocks"].update({"watch": {"kind": "test_cores"}, "after": {"kind": "test_cores"},
+                          "sink2": {"kind": "discard"}})
+    return doc
+
+
+def _nice_here() -> int:
+    return os.getpriority(os.PRIO_PROCESS, threading.get_native_id())
+
+
+linux_nice = pytest.mark.skipif(not sys.platform.startswith("linux"),
+                                reason="needs per-thread nice values (Linux)")
+
+
+@linux_nice
+def test_observers_run_below_the_receive_path_and_the_caller_keeps_its_priority():
+    # setpriority(2), NOTES: on Linux the nice value is per thread
+    before = _nice_here()
+    summary = Runner(pipeline_from_dict(_watched())).run()
+    blocks = summary["blocks"]
+    assert summary["observers"] == "background"
+    assert blocks["probe"]["nice"] == before
+    assert blocks["watch"]["nice"] == blocks["after"]["nice"] == min(19, before
+                                                                     + BACKGROUND_STEP)
+    assert _nice_here() == before
+
+
+@linux_nice
+@pytest.mark.parametrize("where", ["file", "runner"])
+def test_equal_observers_keep_the_receive_paths_priority(where):
+    before = _nice_here()
+    if where == "file":
+        runner = Runner(pipeline_from_dict(_watched(observers="equal")))
+    else:
+        runner = Runner(pipeline_from_dict(_watched()), observers="equal")
+    summary = runner.run()
+    assert summary["observers"] == "equal"
+    assert {b["nice"] for b in summary["blocks"].values() if "nice" in b} == {before}
+
+
+@linux_nice
+def test_background_priority_is_the_calling_threads_alone():
+    before = _nice_here()
+    seen: list[tuple[bool, int]] = []
+
+    def inside() -> None:
+        seen.append((background_priority(3), _nice_here()))
+
+    t = threading.Thread(target=inside)
+    t.start()
+    t.join()
+    assert seen == [(True, min(19, before + 3))]
+    assert _nice_here() == before
+

@@ -88,6 +88,32 @@ def test_tap_arrow_makes_a_tap(tmp_path):
     assert [(e.label(), e.tap) for e in pipe.edges][-1] == ("src.out ~> eye.in", True)
 
 
+def test_the_blocks_behind_taps_are_those_every_path_reaches_through_a_tap(tmp_path):
+    # "join" takes one lossless and one tapped input: it is on the receive path
+    blocks = BLOCKS + """
+[blocks.eye]
+kind = "gain"
+[blocks.shown]
+kind = "discard"
+[blocks.join]
+kind = "test_join"
+[blocks.end]
+kind = "discard"
+"""
+    text = _with_links("src -> amp -> sink", "src ~> eye -> shown", "src -> join.a",
+                       "amp ~> join.b", "join -> end", blocks=blocks)
+    pipe = load_pipeline(_file(tmp_path, text))
+    assert pipe.behind_taps() == {"eye", "shown"}
+    assert pipe.observers == "background"                           # the documented default
+    text = text.replace("sample_rate = 48_000", 'sample_rate = 48_000\nobservers = "equal"')
+    assert load_pipeline(_file(tmp_path, text)).observers == "equal"
+
+
+def test_bad_observers_setting(tmp_path):
+    text = GOOD.replace("sample_rate = 48_000", 'sample_rate = 48_000\nobservers = "idle"')
+    _fails(tmp_path, text, "pipeline.observers", "background")
+
+
 # -- the file itself --------------------------------------------------------------------------
 
 def test_not_valid_toml(tmp_path):
