@@ -34,7 +34,11 @@ background it takes what the receive path leaves, so a receiver that keeps real 
 however much watching there is, and on a saturated core (a recording replayed as fast as it
 goes) the taps drop the chunks the observers cannot take, counted as always. On Linux the nice
 value is a property of each thread (setpriority(2), NOTES), and raising one's own needs no
-privilege; elsewhere the observers keep the receive path's priority.
+privilege; elsewhere the observers keep the receive path's priority. Measured with the
+benchmark's replay of the four loopback receivers (10 M samples, 64k chunks, one core, best of
+5): 51.4 / 50.9 / 58.8 / 57.5 Msamples/s (OOK / 2-FSK / DBPSK / DQPSK) in the background, the
+observers taking 33-45 % of the tapped chunks, against 44.3 / 39.7 / 43.9 / 43.1 beside the
+receive path; the 2-FSK loopback paced at its 250 kS/s lost no chunk on any tap in 8 s.
 """
 
 from __future__ import annotations
@@ -53,10 +57,9 @@ __all__ = ["BACKGROUND_STEP", "OBSERVER_POLICIES", "CpuSettingError", "allowed_c
 WORDS = ("auto", "all")
 #: Settings of ``[pipeline] observers``: observers below the receive path, or beside it.
 OBSERVER_POLICIES = ("background", "equal")
-#: Nice levels an observer's thread runs below the receive path's (of 40, sched(7)). Under
-#: Linux's fair scheduler each level is a factor of about 1.25 in a thread's share of a
-#: contended core, so 10 levels leave an observer about a tenth of what it would get beside
-#: the receive path.
+#: Nice levels an observer's thread runs below the receive path's (sched(7): -20 .. 19). Under
+#: Linux's fair scheduler each level is a factor of about 1.25 in a thread's weight, so an
+#: observer 10 levels down weighs about a tenth of a receive-path thread on a contended core.
 BACKGROUND_STEP = 10
 
 
