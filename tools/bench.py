@@ -836,7 +836,8 @@ def table(result: dict[str, Any]) -> str:
     lines.extend(f"  {k:<7} {v:>6.2f}  ({result['link_msps'][k]:.0f} Msamples/s)"
                  for k, v in result["links"].items())
     pm = result["process_msps"]
-    lines.append(f"two processes vs one ({pm['scheme']}, cut at {pm['cut']}): "
+    lines.append(f"two processes vs one ({pm['scheme']}, cut at {pm['cut']}, observers beside "
+                 "the receive path): "
                  f"{result['processes']:.2f}x  ({pm['two']:.2f} vs {pm['one']:.2f} Msamples/s; "
                  f"target >= 1.5; one process on all cores: {pm['one_all_cores']:.2f})")
     lines.append(f"peak RSS {result['peak_rss_mb']:.1f} MB, 3x run / 1x run = "
