@@ -193,3 +193,8 @@ def test_background_priority_is_the_calling_threads_alone():
     assert seen == [(True, min(19, before + 3))]
     assert _nice_here() == before
 
+
+
+def test_a_bad_observers_argument_names_the_settings():
+    with pytest.raises(ValueError, match="background, equal"):
+        Runner(pipeline_from_dict(_watched()), observers="low")
