@@ -13,7 +13,7 @@ receivers
     chunk sizes 4k, 16k and 64k: Msamples/s of receiver input. The runtime runs as shipped:
     its observers (eye, spectrum, snr, behind taps) in the background (``stream/cpus.py``),
     so on this saturated core they take what the receive path leaves and their taps drop the
-    rest; ``observed`` gives the fraction of the tapped chunks they took (64k runs).
+    rest; ``observed`` gives the fraction of the tapped chunks they took (the fastest 64k run).
 references
     the same blocks, configured the same way, called in order in one thread with no runtime
     (64k chunks), every observer on every chunk. The reference runs on the one core the
