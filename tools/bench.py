@@ -299,9 +299,12 @@ def time_runtime(scheme: str, tape: str, chunk: int, observers: str = "backgroun
     if summary["reason"] != "end-of-stream":
         raise RuntimeError(f"{scheme} at chunk {chunk}: run ended by {summary['reason']}: "
                            f"{summary.get('error')}")
+    # a tap's ``sent`` counts its END message too, which every tap of a run that reached the
+    # end of its stream delivered
     taps = [c for c in runner.links.values() if c.tap]
-    offered = sum(c.sent + c.dropped for c in taps)
-    return elapsed, 1.0 - sum(c.dropped for c in taps) / offered if offered else 1.0
+    taken = sum(c.sent - 1 for c in taps)
+    offered = taken + sum(c.dropped for c in taps)
+    return elapsed, taken / offered if offered else 1.0
 
 
 def time_reference(scheme: str, tape: str, rate: float) -> float:
